@@ -1,0 +1,33 @@
+# Two commands a new user needs: `make demo` and `make test`.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+
+.PHONY: demo test bench demo-batch clean
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install -q --upgrade pip
+
+$(VENV)/.installed: pyproject.toml | $(BIN)/python
+	$(BIN)/python -m pip install -q -e .
+	touch $@
+
+$(VENV)/.installed-test: pyproject.toml | $(BIN)/python
+	$(BIN)/python -m pip install -q -e '.[test]'
+	touch $@ $(VENV)/.installed
+
+demo: $(VENV)/.installed
+	$(BIN)/python demo_logs/make_day.py --out demo_logs
+	@mkdir -p demo_out
+	$(BIN)/countmill convert demo_logs/brewhouse-2026-11-03.csv --map channel_maps/brewhouse.toml -o demo_out/brewhouse-2026-11-03.parquet --summary; \
+	  rc=$$?; if [ $$rc -ne 0 ] && [ $$rc -ne 3 ]; then exit $$rc; fi
+
+test: $(VENV)/.installed-test
+	$(BIN)/python -m pytest -q
+
+bench: $(VENV)/.installed-test
+	$(BIN)/python benchmarks/run.py
+
+clean:
+	rm -rf $(VENV) demo_out
