@@ -1,0 +1,244 @@
+"""Convert one raw log file: the library entry point behind ``countmill convert``.
+
+>>> from countmill.convert import convert_file
+>>> result = convert_file("day.csv", "brewhouse.toml", "day.parquet")  # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from countmill import __version__
+from countmill.chanmap import ChannelMap, load_map
+from countmill.errors import InputError, UsageError
+from countmill.flags import Quality
+from countmill.pipeline.convert import Converter, Rows
+from countmill.pipeline.output import CsvSink, ParquetSink, RejectsSink
+from countmill.pipeline.reader import LogReader, Records
+
+QUALITY_LEVELS = tuple(int(q) for q in Quality)
+DEFAULT_CHUNK_ROWS = 250_000
+
+
+@dataclass
+class ConversionResult:
+    source: Path
+    output: Path
+    rejects_path: Path | None
+    data_lines: int
+    rows: int
+    records: int
+    rejects: int
+    #: channel name (None for unmapped) -> {quality level: count}
+    quality_counts: dict[str | None, dict[int, int]] = field(default_factory=dict)
+    source_sha256: str = ""
+
+    @property
+    def exit_code(self) -> int:
+        return 3 if self.rejects else 0
+
+    def as_dict(self) -> dict:
+        return {
+            "source": str(self.source),
+            "output": str(self.output),
+            "rejects_file": str(self.rejects_path) if self.rejects_path else None,
+            "data_lines": self.data_lines,
+            "records": self.records,
+            "rows": self.rows,
+            "rejects": self.rejects,
+            "source_sha256": self.source_sha256,
+            "quality": {str(k): v for k, v in self.quality_counts.items()},
+        }
+
+
+def default_output(raw: Path) -> Path:
+    name = raw.name
+    if name.endswith(".gz"):
+        name = name[:-3]
+    return Path.cwd() / (Path(name).stem + ".parquet")
+
+
+def provenance(cmap: ChannelMap, source: Path, source_sha256: str) -> dict:
+    channels: dict[str, dict] = {}
+    for cid in cmap.order:
+        revisions = cmap.channels[cid]
+        latest = revisions[-1]
+        entries = [
+            {
+                "from": rev.valid_from_text,
+                "name": rev.name,
+                "unit": rev.unit,
+                "description": rev.description,
+                "chain": rev.chain_metadata(),
+                "calibration": rev.calibration.as_metadata() if rev.calibration else None,
+                "range": list(rev.range) if rev.range else None,
+                "expect": list(rev.expect) if rev.expect else None,
+            }
+            for rev in revisions
+        ]
+        for rev in revisions:
+            channels.setdefault(rev.name, {
+                "id": cid,
+                "unit": latest.unit,
+                "description": latest.description,
+                "chain": latest.chain_metadata(),
+                "calibration": latest.calibration.as_metadata() if latest.calibration else None,
+                "revisions": entries,
+            })
+    for d in cmap.derived:
+        channels[d.name] = {
+            "id": None,
+            "unit": d.unit,
+            "description": d.description,
+            "chain": [{"expression": d.expression.text, "max_age": d.max_age_s}],
+            "calibration": None,
+            "revisions": [],
+            "expression": d.expression.text,
+        }
+    return {
+        "version": __version__,
+        "map": {"name": cmap.name, "path": Path(cmap.path).name, "sha256": cmap.sha256},
+        "source": {"name": source.name, "sha256": source_sha256},
+        "channels": channels,
+    }
+
+
+class _Tally:
+    """Quality counts per channel, accumulated chunk by chunk."""
+
+    def __init__(self, names: list[str]):
+        self.names = names
+        self.counts = np.zeros((len(names) + 1, 10), dtype=np.int64)
+
+    def add(self, rows: Rows) -> None:
+        index = np.where(rows.name < 0, len(self.names), rows.name)
+        np.add.at(self.counts, (index, rows.quality), 1)
+
+    def as_dict(self) -> dict[str | None, dict[int, int]]:
+        out = {}
+        for i, row in enumerate(self.counts):
+            if row.sum():
+                out[self.names[i] if i < len(self.names) else None] = {q: int(row[q]) for q in QUALITY_LEVELS if row[q]}
+        return out
+
+
+def iter_chunks(blocks, chunk_rows: int):
+    """Re-cut reader blocks into chunks of at most ``chunk_rows`` records."""
+    for block in blocks:
+        rejects = block.rejects
+        if len(block) == 0:
+            yield block
+            continue
+        for start in range(0, len(block), chunk_rows):
+            piece = block.slice(start, start + chunk_rows)
+            piece.rejects = rejects if start == 0 else []
+            yield piece
+
+
+def convert_file(
+    raw: str | Path,
+    channel_map: str | Path | ChannelMap,
+    output: str | Path | None = None,
+    *,
+    chunk_rows: int = DEFAULT_CHUNK_ROWS,
+    layout: str = "tidy",
+    every: str | None = None,
+    progress: Callable[[int, int], None] | None = None,
+) -> ConversionResult:
+    """Convert ``raw`` with ``channel_map`` into ``output`` (.parquet or .csv).
+
+    Raises :class:`countmill.errors.MapError` (exit 2), :class:`UsageError` (2) or
+    :class:`InputError` (1); on any failure nothing is left at the final path.
+    """
+    raw = Path(raw)
+    cmap = channel_map if isinstance(channel_map, ChannelMap) else load_map(channel_map)
+    out = Path(output) if output is not None else default_output(raw)
+    if out.suffix.lower() not in (".parquet", ".csv"):
+        raise UsageError(f"{out}: the output suffix must be .parquet or .csv")
+    if chunk_rows < 1:
+        raise UsageError(f"--chunk-rows must be at least 1; got {chunk_rows}")
+    if layout == "wide":
+        from countmill.wide import convert_wide  # noqa: PLC0415 (optional layout)
+
+        return convert_wide(raw, cmap, out, chunk_rows=chunk_rows, every=every, progress=progress)
+    if layout != "tidy":
+        raise UsageError(f"--layout must be tidy or wide; got {layout!r}")
+    if not raw.exists():
+        raise InputError(f"{raw}: no such file")
+
+    converter = Converter(cmap)
+    sink_type = CsvSink if out.suffix.lower() == ".csv" else ParquetSink
+    out.parent.mkdir(parents=True, exist_ok=True)
+    sink = sink_type(out, converter.names, converter.units)
+    rejects = RejectsSink(out)
+    tally = _Tally(converter.names)
+    held: list[Rows] = []
+    held_start = 0  # global index of the first held row
+    rows_written = 0
+    records = 0
+    try:
+        with LogReader(raw, cmap.input, cmap.timezone, block_bytes=_block_bytes(chunk_rows)) as reader:
+            for chunk in iter_chunks(reader.blocks(), chunk_rows):
+                rejects.write(chunk.rejects)
+                if len(chunk):
+                    records += len(chunk)
+                    held.append(converter.convert(chunk))
+                    converter.expire_all(int(chunk.line[-1]))
+                    held, held_start, n = _release(converter, held, held_start, sink, tally, final=False)
+                    rows_written += n
+                if progress is not None:
+                    progress(reader.bytes_read, reader.total_bytes)
+            held, held_start, n = _release(converter, held, held_start, sink, tally, final=True)
+            rows_written += n
+            source_sha = reader.sha256
+            data_lines = reader.data_lines
+        info = provenance(cmap, raw, source_sha)
+        sink.close(info)
+        rejects_path = rejects.close()
+    except BaseException:
+        sink.abort()
+        rejects.abort()
+        raise
+    if records + rejects.count != data_lines:  # every data line is a record or a reject
+        raise InputError(f"{raw}: accounting error: {data_lines} data lines, {records} records, {rejects.count} rejects")
+    return ConversionResult(
+        source=raw,
+        output=out,
+        rejects_path=rejects_path,
+        data_lines=data_lines,
+        rows=rows_written,
+        records=records,
+        rejects=rejects.count,
+        quality_counts=tally.as_dict(),
+        source_sha256=source_sha,
+    )
+
+
+def _block_bytes(chunk_rows: int) -> int:
+    return int(min(16 << 20, max(64 << 10, chunk_rows * 48)))
+
+
+def _release(converter: Converter, held: list[Rows], held_start: int, sink, tally: _Tally, final: bool):
+    """Write held rows that no pending spike decision still needs; patch spike flags first."""
+    if not held:
+        return held, held_start, 0
+    buffer = Rows.concat(held) if len(held) > 1 else held[0]
+    for row, flag in converter.patches:
+        buffer.flags[row - held_start] |= flag
+    converter.patches.clear()
+    stop = len(buffer)
+    if not final:
+        first_pending = converter.held_from()
+        if first_pending is not None:
+            stop = max(0, first_pending - held_start)
+    if stop == 0:
+        return [buffer], held_start, 0
+    done = buffer.take(slice(0, stop))
+    sink.write(done)
+    tally.add(done)
+    rest = buffer.take(slice(stop, None))
+    return ([rest] if len(rest) else []), held_start + stop, stop
