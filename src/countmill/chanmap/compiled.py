@@ -112,7 +112,6 @@ class ChannelRevision:
     valid_from_text: str | None
     adc: Adc
     gains: dict[int, float]
-    gain_lookup: np.ndarray  # gain by code for codes 0..len-1, NaN where unknown
     chain: list[ChainStep]
     chain_unit: str  # unit the chain ends in
     to_unit: tuple[float, float]  # scale, offset from chain_unit to unit

@@ -182,7 +182,6 @@ class _Loader:
             valid_from_text=spec.valid_from.isoformat() if spec.valid_from else None,
             adc=adc,
             gains=dict(gains),
-            gain_lookup=gain_lookup(gains),
             chain=chain,
             chain_unit=chain_unit,
             to_unit=affine_conversion(chain_unit, spec.unit),
@@ -378,10 +377,3 @@ class _Loader:
             visit(cid, [])
         return order
 
-
-def gain_lookup(gains: dict[int, float]) -> np.ndarray:
-    size = max(gains) + 1 if gains else 1
-    lookup = np.full(size, np.nan)
-    for code, gain in gains.items():
-        lookup[code] = gain
-    return lookup
