@@ -77,6 +77,9 @@ def provenance(cmap: ChannelMap, source: Path, source_sha256: str) -> dict:
                 "calibration": rev.calibration.as_metadata() if rev.calibration else None,
                 "range": list(rev.range) if rev.range else None,
                 "expect": list(rev.expect) if rev.expect else None,
+                "from_utc": _utc_text(rev.valid_from_us),
+                "adc": {"bits": rev.adc.bits, "span": list(rev.adc.span), "coding": rev.adc.coding},
+                "gains": {str(code): gain for code, gain in sorted(rev.gains.items())},
             }
             for rev in revisions
         ]
@@ -101,10 +104,17 @@ def provenance(cmap: ChannelMap, source: Path, source_sha256: str) -> dict:
         }
     return {
         "version": __version__,
-        "map": {"name": cmap.name, "path": Path(cmap.path).name, "sha256": cmap.sha256},
+        "map": {"name": cmap.name, "path": Path(cmap.path).name, "sha256": cmap.sha256, "timezone": cmap.timezone},
         "source": {"name": source.name, "sha256": source_sha256},
         "channels": channels,
     }
+
+
+def _utc_text(instant_us: int) -> str | None:
+    """ISO 8601 UTC text of a revision start; None for a revision valid from the beginning."""
+    if instant_us == np.iinfo(np.int64).min:
+        return None
+    return str(np.datetime64(int(instant_us), "us")) + "Z"
 
 
 class _Tally:
@@ -167,13 +177,33 @@ def convert_file(
         return convert_wide(raw, cmap, out, chunk_rows=chunk_rows, every=every, progress=progress)
     if layout != "tidy":
         raise UsageError(f"--layout must be tidy or wide; got {layout!r}")
+    sink_type = CsvSink if out.suffix.lower() == ".csv" else ParquetSink
+    return run_conversion(
+        raw, cmap, out, lambda converter: sink_type(out, converter.names, converter.units),
+        chunk_rows=chunk_rows, progress=progress,
+    )
+
+
+def run_conversion(
+    raw: Path,
+    cmap: ChannelMap,
+    out: Path,
+    make_sink: Callable[[Converter], object],
+    *,
+    chunk_rows: int,
+    progress: Callable[[int, int], None] | None = None,
+) -> ConversionResult:
+    """The streaming loop read → convert → test → write, shared by every output layout.
+
+    ``make_sink(converter)`` returns an object with ``write(rows)``, ``close(provenance)``
+    and ``abort()``; it receives the tidy rows in input order, with their final flags.
+    """
     if not raw.exists():
         raise InputError(f"{raw}: no such file")
 
     converter = Converter(cmap)
-    sink_type = CsvSink if out.suffix.lower() == ".csv" else ParquetSink
     out.parent.mkdir(parents=True, exist_ok=True)
-    sink = sink_type(out, converter.names, converter.units)
+    sink = make_sink(converter)
     rejects = RejectsSink(out)
     tally = _Tally(converter.names)
     held: list[Rows] = []
