@@ -18,7 +18,7 @@ from countmill.errors import InputError, UsageError
 from countmill.flags import Quality
 from countmill.pipeline.convert import Converter, Rows
 from countmill.pipeline.output import CsvSink, ParquetSink, RejectsSink
-from countmill.pipeline.reader import LogReader, Records
+from countmill.pipeline.reader import LogReader, Records, file_sha256
 
 QUALITY_LEVELS = tuple(int(q) for q in Quality)
 DEFAULT_CHUNK_ROWS = 250_000
@@ -179,7 +179,7 @@ def convert_file(
         raise UsageError(f"--layout must be tidy or wide; got {layout!r}")
     sink_type = CsvSink if out.suffix.lower() == ".csv" else ParquetSink
     return run_conversion(
-        raw, cmap, out, lambda converter: sink_type(out, converter.names, converter.units),
+        raw, cmap, out, lambda converter, info: sink_type(out, converter.names, converter.units, info),
         chunk_rows=chunk_rows, progress=progress,
     )
 
@@ -188,22 +188,28 @@ def run_conversion(
     raw: Path,
     cmap: ChannelMap,
     out: Path,
-    make_sink: Callable[[Converter], object],
+    make_sink: Callable[[Converter, dict], object],
     *,
     chunk_rows: int,
     progress: Callable[[int, int], None] | None = None,
 ) -> ConversionResult:
     """The streaming loop read → convert → test → write, shared by every output layout.
 
-    ``make_sink(converter)`` returns an object with ``write(rows)``, ``close(provenance)``
-    and ``abort()``; it receives the tidy rows in input order, with their final flags.
+    ``make_sink(converter, provenance)`` returns an object with ``write(rows)``, ``close()``
+    and ``abort()``; it receives the tidy rows in input order, with their final flags. The
+    provenance (with the source's SHA-256, hashed before reading) is known up front so that
+    Parquet sinks can put it in the Arrow schema itself.
     """
     if not raw.exists():
         raise InputError(f"{raw}: no such file")
 
     converter = Converter(cmap)
     out.parent.mkdir(parents=True, exist_ok=True)
-    sink = make_sink(converter)
+    try:
+        source_sha = file_sha256(raw)
+    except OSError as exc:
+        raise InputError(f"{raw}: cannot read: {exc.strerror}") from None
+    sink = make_sink(converter, provenance(cmap, raw, source_sha))
     rejects = RejectsSink(out)
     tally = _Tally(converter.names)
     held: list[Rows] = []
@@ -224,10 +230,8 @@ def run_conversion(
                     progress(reader.bytes_read, reader.total_bytes)
             held, held_start, n = _release(converter, held, held_start, sink, tally, final=True)
             rows_written += n
-            source_sha = reader.sha256
             data_lines = reader.data_lines
-        info = provenance(cmap, raw, source_sha)
-        sink.close(info)
+        sink.close()
         rejects_path = rejects.close()
     except BaseException:
         sink.abort()

@@ -95,11 +95,12 @@ def publish(tmp: Path, final: Path) -> None:
 
 
 class ParquetSink:
-    def __init__(self, final: Path, names: list[str], units: list[str]):
+    def __init__(self, final: Path, names: list[str], units: list[str], provenance: dict):
         self.final = final
         self.tmp = temporary_path(final)
         self.names, self.units = names, units
-        self.schema = tidy_schema()
+        # the provenance goes into the Arrow schema itself, so readers see it as schema metadata
+        self.schema = tidy_schema().with_metadata({"countmill": json.dumps(provenance)})
         self.writer = pq.ParquetWriter(
             self.tmp,
             self.schema,
@@ -123,9 +124,8 @@ class ParquetSink:
             self.writer.write_table(pa.concat_tables(self._pending), row_group_size=max(self._pending_rows, 1))
             self._pending, self._pending_rows = [], 0
 
-    def close(self, provenance: dict) -> Path:
+    def close(self) -> Path:
         self._flush()
-        self.writer.add_key_value_metadata({"countmill": json.dumps(provenance)})
         self.writer.close()
         publish(self.tmp, self.final)
         return self.final
@@ -157,10 +157,11 @@ CSVW_TYPES = {
 class CsvSink:
     """CSV for spreadsheets: ISO 8601 UTC times with Z, empty fields for NaN/null."""
 
-    def __init__(self, final: Path, names: list[str], units: list[str]):
+    def __init__(self, final: Path, names: list[str], units: list[str], provenance: dict):
         self.final = final
         self.tmp = temporary_path(final)
         self.names, self.units = names, units
+        self.provenance = provenance
         self.schema = tidy_schema()
         self.sidecar = final.with_name(final.name + "-metadata.json")
         self._file = open(self.tmp, "wb")
@@ -181,7 +182,8 @@ class CsvSink:
             self._writer = pacsv.CSVWriter(self._file, table.schema, write_options=pacsv.WriteOptions(quoting_style="needed"))
         self._writer.write_table(table)
 
-    def close(self, provenance: dict) -> Path:
+    def close(self) -> Path:
+        provenance = self.provenance
         if self._writer is None:  # no rows at all: still a valid CSV with its header
             self._file.write((",".join(CSVW_TYPES) + "\n").encode())
         else:

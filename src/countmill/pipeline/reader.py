@@ -65,12 +65,11 @@ class Records:
         )
 
 
-class HashingReader(io.RawIOBase):
-    """Passes bytes through and hashes them as stored (compressed, for .gz)."""
+class CountingReader(io.RawIOBase):
+    """Passes bytes through and counts them as stored (compressed, for .gz), for progress."""
 
     def __init__(self, raw: BinaryIO):
         self.raw = raw
-        self.sha256 = hashlib.sha256()
         self.bytes_read = 0
 
     def readable(self) -> bool:
@@ -79,9 +78,17 @@ class HashingReader(io.RawIOBase):
     def readinto(self, buffer) -> int:
         n = self.raw.readinto(buffer)
         if n:
-            self.sha256.update(memoryview(buffer)[:n])
             self.bytes_read += n
         return n or 0
+
+
+def file_sha256(path: str | Path) -> str:
+    """SHA-256 of a file's bytes as stored (compressed, for .gz)."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while chunk := fh.read(1 << 22):
+            digest.update(chunk)
+    return digest.hexdigest()
 
 
 class LogReader:
@@ -103,15 +110,11 @@ class LogReader:
         except OSError as exc:
             raise InputError(f"{self.path}: cannot open: {exc.strerror}") from None
         self.total_bytes = self.path.stat().st_size
-        self._hasher = HashingReader(self._file)
+        self._hasher = CountingReader(self._file)
         buffered = io.BufferedReader(self._hasher, buffer_size=1 << 20)
         magic = buffered.peek(2)[:2]
         self.compressed = magic == GZIP_MAGIC
         self._stream: BinaryIO = gzip.GzipFile(fileobj=buffered) if self.compressed else buffered
-
-    @property
-    def sha256(self) -> str:
-        return self._hasher.sha256.hexdigest()
 
     @property
     def bytes_read(self) -> int:
@@ -157,9 +160,6 @@ class LogReader:
             yield records
             if eof:
                 break
-        # drain the hash of anything after the gzip member (trailing garbage is hashed too)
-        while self._hasher.readinto(bytearray(1 << 20)):
-            pass
 
     # --- block parsing ---------------------------------------------------------------------
     def _parse_block(self, block: bytes, last: bool) -> Records:
