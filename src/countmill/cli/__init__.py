@@ -31,7 +31,29 @@ Example:
 """
 
 
-@click.group(epilog=EPILOG, context_settings={"help_option_names": ["-h", "--help"]})
+class _Failure(click.ClickException):
+    """A library error on its way out of a command: its message and the contract's exit code."""
+
+    def __init__(self, error: CountmillError):
+        super().__init__(str(error))
+        self.exit_code = error.exit_code
+
+    def show(self, file=None) -> None:
+        click.echo(f"countmill: {self.format_message()}", err=True)
+
+
+class _Group(click.Group):
+    """Turns :class:`CountmillError` raised by any command into a clean message and exit code,
+    so ``cli`` behaves the same whether run from the console script or embedded (CliRunner)."""
+
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except CountmillError as exc:
+            raise _Failure(exc) from None
+
+
+@click.group(cls=_Group, epilog=EPILOG, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="countmill")
 def cli() -> None:
     """Turn data-logger raw codes into engineering units with quality flags."""
