@@ -74,7 +74,8 @@ class LocalClock:
             ident = int(k)
             previous_max = self._max_wall.get(ident, np.iinfo(np.int64).min)
             running = np.maximum.accumulate(np.concatenate(([previous_max], walls)))[:-1]
-            back = walls < running - half
+            # (walls + half, not running - half: running starts at int64 min and must not wrap)
+            back = walls + half < running
             second = np.logical_or.accumulate(back) | self._stepped_back.get(ident, False)
             utc[sel] = np.where(second, late_us[sel], early_us[sel])
             self._max_wall[ident] = int(max(previous_max, walls.max()))
