@@ -31,6 +31,14 @@ from countmill.pipeline.timezone import US, LocalClock
 BOM = b"\xef\xbb\xbf"
 GZIP_MAGIC = b"\x1f\x8b"
 
+#: integer fields and the range of their output column (channel_id int32, code int32,
+#: gain_code int16): a number outside it cannot be written as read, so the line is a reject
+FIELD_LIMITS = {
+    "channel": (-(2**31), 2**31 - 1, "32-bit"),
+    "code": (-(2**31), 2**31 - 1, "32-bit"),
+    "gain": (-(2**15), 2**15 - 1, "16-bit"),
+}
+
 
 @dataclass
 class Reject:
@@ -197,6 +205,11 @@ class LogReader:
                 raise ValueError("row count")
             if any(table.column(c).null_count for c in table.column_names):
                 raise ValueError("empty field")
+            for name in FIELD_LIMITS.keys() & set(self.columns):
+                bounds = pc.min_max(table.column(name))
+                low, high, _ = FIELD_LIMITS[name]
+                if bounds["min"].as_py() < low or bounds["max"].as_py() > high:
+                    raise ValueError("integer out of range")
             naive, aware = self._arrow_times(table.column("time"))
         except (pa.ArrowInvalid, ValueError):
             return self._slow_block(block, start_line, last)
@@ -325,8 +338,9 @@ class LogReader:
                 values[name] = int(field_text)
             except ValueError:
                 return f"{name} {field_text!r} is not an integer"
-            if not -(2**62) < values[name] < 2**62:
-                return f"{name} {field_text!r} is out of range"
+            low, high, width = FIELD_LIMITS[name]
+            if not low <= values[name] <= high:
+                return f"{name} {field_text!r} is out of range (the output column is {width})"
         time_text = fields[index["time"]].strip()
         parsed = self._parse_time(time_text)
         if parsed is None:
