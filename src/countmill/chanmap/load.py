@@ -58,8 +58,13 @@ def parse_map(raw: bytes, path: str = "<map>") -> ChannelMap:
 
 
 def _pydantic_problem(exc: ValidationError) -> tuple[str, str]:
-    """First problem of a pydantic error as (key path, message)."""
-    err = exc.errors()[0]
+    """First problem of a pydantic error as (key path, message).
+
+    An unknown key comes first: a misspelt key also makes the intended key "missing",
+    and the user needs to see the one they typed.
+    """
+    errors = exc.errors()
+    err = next((e for e in errors if e.get("type") == "extra_forbidden"), errors[0])
     key = ".".join(str(p) for p in err["loc"]) or None
     message = err["msg"]
     if err.get("type") == "extra_forbidden":
@@ -365,8 +370,12 @@ class _Loader:
                 return
             if state.get(cid) == 1:
                 cycle = path[path.index(cid):] + [cid]
-                names = " -> ".join(revisions[c][0].name for c in cycle)
-                raise self.error(f"channels read each other in a cycle: {names}", key="cold_junction")
+                names = " -> ".join(self.where(c, revisions[c][0].name) for c in cycle)
+                raise self.error(
+                    f"channels read each other in a cycle: {names}",
+                    where=self.where(cid, revisions[cid][0].name),
+                    key="cold_junction",
+                )
             state[cid] = 1
             for dep in sorted(needs[cid]):
                 visit(dep, path + [cid])
