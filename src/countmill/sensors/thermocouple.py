@@ -1,0 +1,352 @@
+"""Letter-designated thermocouples (types B, E, J, K, N, R, S, T) on ITS-90.
+
+Three vectorised models on plain float64 arrays:
+
+* :func:`thermocouple_emf`: hot-junction temperature [degC] -> emf [mV], reference
+  junction at 0 degC, by the NIST ITS-90 reference functions;
+* :func:`thermocouple_temperature`: emf [mV] (reference junction at 0 degC) -> temperature
+  [degC], by the NIST inverse polynomial refined with Newton steps on the reference function,
+  so that the result is the exact inverse of :func:`thermocouple_emf`;
+* :func:`cold_junction_compensated_temperature`: measured emf [mV] with the reference
+  junction at a known temperature [degC] -> hot-junction temperature [degC].
+
+Out of range gives NaN, never a clamped value. The coefficients are in
+:mod:`countmill.sensors._nist_its90`.
+
+Range of the inverse, per type
+------------------------------
+:func:`thermocouple_temperature` accepts an emf from E(t_low) to E(t_high), where t_low and
+t_high are the temperature limits of NIST's published inverse function for the type and E
+is the reference function. NIST prints these emf limits rounded to 0.001 mV; the unrounded
+values are used so that every temperature from t_low to t_high converts back and forth
+(NIST's print is not always rounded to nearest: type S at -50 degC is -0.23556 mV, printed
+-0.235). An allowance of 1e-9 mV absorbs float64 round-off at the limits.
+
+====  ==================  =========================  ==========================
+type  inverse [degC]      inverse, NIST print [mV]   reference function [degC]
+====  ==================  =========================  ==========================
+B     250 ... 1820        0.291 ... 13.820           0 ... 1820
+E     -200 ... 1000       -8.825 ... 76.373          -270 ... 1000
+J     -210 ... 1200       -8.095 ... 69.553          -210 ... 1200
+K     -200 ... 1372       -5.891 ... 54.886          -270 ... 1372
+N     -200 ... 1300       -3.990 ... 47.513          -270 ... 1300
+R     -50 ... 1768.1      -0.226 ... 21.103          -50 ... 1768.1
+S     -50 ... 1768.1      -0.235 ... 18.693          -50 ... 1768.1
+T     -200 ... 400        -5.603 ... 20.872          -270 ... 400
+====  ==================  =========================  ==========================
+
+Below -200 degC (E, K, N, T) NIST publishes no inverse; those emfs give NaN although the
+reference function goes down to -270 degC. Type B starts at 250 degC: below about 40 degC its
+emf is not single-valued (it dips below zero), and NIST's inverse starts at 0.291 mV.
+"""
+
+from __future__ import annotations
+
+import functools
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from countmill.sensors import _nist_its90 as _nist
+
+__all__ = [
+    "THERMOCOUPLE_TYPES",
+    "cold_junction_compensated_temperature",
+    "inverse_emf_range",
+    "nist_inverse_polynomial",
+    "reference_range",
+    "thermocouple_emf",
+    "thermocouple_temperature",
+]
+
+#: The letter types, upper case.
+THERMOCOUPLE_TYPES: tuple[str, ...] = _nist.TYPES
+
+#: Float64 round-off allowance at the limits of the inverse range [mV] (1 pV, far below any
+#: logger's resolution): E(t) - E(t_cj) + E(t_cj) may miss E(t) by a few ulp.
+_EMF_ROUND_OFF_MV = 1e-9
+
+#: Newton steps after the NIST inverse polynomial. Its error is below 0.06 degC; one step
+#: leaves up to 1.5e-5 degC, two reach float64 round-off (2e-10 degC over every type's range).
+_NEWTON_STEPS = 2
+
+
+@dataclass(frozen=True)
+class _TypeTables:
+    t_min: float  # reference function [degC]
+    t_max: float
+    t_breaks: np.ndarray  # inner subrange limits of the reference function [degC]
+    c: tuple[np.ndarray, ...]  # reference-function coefficients per subrange, ascending
+    exponential: tuple[float, float, float] | None  # type K: a0, a1, a2 on t >= 0 degC
+    t_inv_min: float  # temperature limits of the inverse function [degC]
+    t_inv_max: float
+    e_min: float  # accepted emf: E(t_inv_min) .. E(t_inv_max) [mV]
+    e_max: float
+    e_breaks: np.ndarray  # inner subrange limits of the inverse function [mV]
+    d: tuple[np.ndarray, ...]  # inverse-function coefficients per subrange, ascending
+
+
+def _letter(type: str) -> str:
+    letter = str(type).strip().upper()
+    if letter not in _nist.REFERENCE:
+        raise ValueError(
+            f"thermocouple type {type!r} is not one of {', '.join(THERMOCOUPLE_TYPES)}"
+        )
+    return letter
+
+
+@functools.lru_cache(maxsize=None)
+def _tables(letter: str) -> _TypeTables:
+    ref = _nist.REFERENCE[letter]
+    inv = _nist.INVERSE[letter]
+    partial = _TypeTables(
+        t_min=ref[0].t_low,
+        t_max=ref[-1].t_high,
+        t_breaks=np.array([r.t_high for r in ref[:-1]]),
+        c=tuple(np.array(r.c) for r in ref),
+        exponential=_nist.K_EXPONENTIAL if letter == "K" else None,
+        t_inv_min=inv[0].t_low,
+        t_inv_max=inv[-1].t_high,
+        e_min=np.nan,
+        e_max=np.nan,
+        # Where NIST's subranges overlap (R, S) the later, more accurate one wins.
+        e_breaks=np.array([r.e_low for r in inv[1:]]),
+        d=tuple(np.array(r.d) for r in inv),
+    )
+    e_low, e_high = _emf_and_slope(np.array([partial.t_inv_min, partial.t_inv_max]), partial)[0]
+    return replace(partial, e_min=float(e_low), e_max=float(e_high))
+
+
+def _horner(coefficients: np.ndarray, x: np.ndarray) -> np.ndarray:
+    y = np.full_like(x, coefficients[-1])
+    for c in coefficients[-2::-1]:
+        y *= x
+        y += c
+    return y
+
+
+def _emf_and_slope(t: np.ndarray, tab: _TypeTables) -> tuple[np.ndarray, np.ndarray]:
+    """E(t) [mV] and dE/dt [mV/degC], each subrange's polynomial used past its ends too."""
+    piece = np.searchsorted(tab.t_breaks, t, side="left")
+    e = np.empty_like(t)
+    s = np.empty_like(t)
+    for k, c in enumerate(tab.c):
+        sel = piece == k
+        if not sel.any():
+            continue
+        x = t[sel]
+        p = np.full_like(x, c[-1])
+        dp = np.zeros_like(x)
+        for ci in c[-2::-1]:  # Horner for the polynomial and its derivative together
+            dp *= x
+            dp += p
+            p *= x
+            p += ci
+        if tab.exponential is not None and k == len(tab.c) - 1:
+            a0, a1, a2 = tab.exponential
+            g = a0 * np.exp(a1 * (x - a2) ** 2)
+            p += g
+            dp += g * 2.0 * a1 * (x - a2)
+        e[sel] = p
+        s[sel] = dp
+    return e, s
+
+
+def _as_float_array(x) -> np.ndarray:
+    return np.array(x, dtype=np.float64, copy=True)
+
+
+def _shape_out(out: np.ndarray):
+    return out[()] if out.ndim == 0 else out
+
+
+def reference_range(type: str) -> tuple[float, float]:
+    """Temperature limits of the NIST reference function of a type [degC]."""
+    tab = _tables(_letter(type))
+    return tab.t_min, tab.t_max
+
+
+def inverse_emf_range(type: str) -> tuple[float, float]:
+    """Emf limits [mV] (reference junction at 0 degC) :func:`thermocouple_temperature` accepts.
+
+    E(t_low) and E(t_high) at the temperature limits of NIST's inverse function, unrounded.
+    """
+    tab = _tables(_letter(type))
+    return tab.e_min, tab.e_max
+
+
+def thermocouple_emf(t, *, type: str):
+    r"""Thermocouple emf from the NIST ITS-90 reference function.
+
+    Parameters
+    ----------
+    t : array_like of float
+        Hot-junction temperature [degC] (ITS-90).
+    type : str
+        Letter type: ``"B"``, ``"E"``, ``"J"``, ``"K"``, ``"N"``, ``"R"``, ``"S"`` or ``"T"``
+        (lower case accepted).
+
+    Returns
+    -------
+    emf : ndarray of float64 or float
+        Thermoelectric emf [mV] with the reference junction at 0 degC; NaN where ``t`` is
+        NaN or outside the type's reference range (see :func:`reference_range`).
+
+    Notes
+    -----
+    On each temperature subrange of the type,
+
+    .. math:: E = \sum_{i=0}^{n} c_i\, t^i,
+
+    and for type K at and above 0 degC
+
+    .. math:: E = \sum_{i=0}^{n} c_i\, t^i + a_0 \exp\left(a_1 (t - a_2)^2\right).
+
+    A temperature on the limit between two subranges uses the lower one, so that
+    E(0 degC) is exactly 0 for every type (type K's upper subrange gives -2e-9 mV there).
+
+    References
+    ----------
+    .. [1] G. W. Burns, M. G. Scroger, G. F. Strouse, M. C. Croarkin, W. F. Guthrie,
+       "Temperature-Electromotive Force Reference Functions and Tables for the
+       Letter-Designated Thermocouple Types Based on the ITS-90", NIST Monograph 175, 1993.
+    .. [2] H. Preston-Thomas, "The International Temperature Scale of 1990 (ITS-90)",
+       Metrologia 27, 3-10, 1990.
+    .. [3] NIST Standard Reference Database 60, NIST ITS-90 Thermocouple Database.
+    """
+    tab = _tables(_letter(type))
+    t = _as_float_array(t)
+    t[~((t >= tab.t_min) & (t <= tab.t_max))] = np.nan
+    return _shape_out(_emf_and_slope(t, tab)[0])
+
+
+def thermocouple_temperature(emf, *, type: str):
+    r"""Hot-junction temperature from thermocouple emf (reference junction at 0 degC).
+
+    Parameters
+    ----------
+    emf : array_like of float
+        Thermoelectric emf [mV] with the reference junction at 0 degC.
+    type : str
+        Letter type: ``"B"``, ``"E"``, ``"J"``, ``"K"``, ``"N"``, ``"R"``, ``"S"`` or ``"T"``
+        (lower case accepted).
+
+    Returns
+    -------
+    t : ndarray of float64 or float
+        Temperature [degC] (ITS-90); NaN where ``emf`` is NaN or outside the range of the
+        type's NIST inverse function (see :func:`inverse_emf_range` and the module notes).
+
+    Notes
+    -----
+    A first estimate comes from NIST's approximate inverse polynomial for the emf subrange,
+
+    .. math:: t_0 = \sum_{i=0}^{n} d_i\, E^i,
+
+    whose published error is at most 0.06 degC. Newton steps on the reference function
+    :math:`E(t)` of :func:`thermocouple_emf`, with its analytic derivative (Seebeck
+    coefficient) :math:`S(t) = dE/dt`,
+
+    .. math:: t_{k+1} = t_k - \frac{E(t_k) - E}{S(t_k)},
+
+    then make the result the inverse of the reference function to float64 round-off, so
+    that ``thermocouple_temperature(thermocouple_emf(t))`` returns ``t``. The result is
+    kept within the inverse function's temperature limits.
+
+    References
+    ----------
+    .. [1] G. W. Burns, M. G. Scroger, G. F. Strouse, M. C. Croarkin, W. F. Guthrie,
+       "Temperature-Electromotive Force Reference Functions and Tables for the
+       Letter-Designated Thermocouple Types Based on the ITS-90", NIST Monograph 175, 1993.
+    .. [2] H. Preston-Thomas, "The International Temperature Scale of 1990 (ITS-90)",
+       Metrologia 27, 3-10, 1990.
+    .. [3] NIST Standard Reference Database 60, NIST ITS-90 Thermocouple Database.
+    """
+    tab = _tables(_letter(type))
+    e = _as_float_array(emf)
+    e[~((e >= tab.e_min - _EMF_ROUND_OFF_MV) & (e <= tab.e_max + _EMF_ROUND_OFF_MV))] = np.nan
+    t = _inverse_polynomial(e, tab)
+    for _ in range(_NEWTON_STEPS):
+        f, s = _emf_and_slope(t, tab)
+        t -= (f - e) / s
+    np.clip(t, tab.t_inv_min, tab.t_inv_max, out=t)
+    return _shape_out(t)
+
+
+def _inverse_polynomial(e: np.ndarray, tab: _TypeTables) -> np.ndarray:
+    """NIST's approximate inverse t(E) [degC], no range check (NaN in, NaN out)."""
+    piece = np.searchsorted(tab.e_breaks, e, side="right")
+    t = np.empty_like(e)
+    for k, d in enumerate(tab.d):
+        sel = piece == k
+        if sel.any():
+            t[sel] = _horner(d, e[sel])
+    return t
+
+
+def nist_inverse_polynomial(emf, *, type: str):
+    """NIST's approximate inverse polynomial alone, without the Newton refinement.
+
+    Parameters
+    ----------
+    emf : array_like of float
+        Thermoelectric emf [mV] with the reference junction at 0 degC.
+    type : str
+        Letter type (``"B"`` ... ``"T"``, lower case accepted).
+
+    Returns
+    -------
+    t : ndarray of float64 or float
+        Temperature [degC] from the published inverse polynomial, within NIST's stated
+        error band of :func:`thermocouple_temperature`; NaN outside the inverse range.
+
+    Notes
+    -----
+    :math:`t = \\sum_{i=0}^{n} d_i E^i` on the emf subrange containing E. Kept for checking
+    the transcribed coefficients against NIST's published error bands.
+
+    References
+    ----------
+    .. [1] NIST Monograph 175, 1993, inverse functions on ITS-90.
+    """
+    tab = _tables(_letter(type))
+    e = _as_float_array(emf)
+    e[~((e >= tab.e_min - _EMF_ROUND_OFF_MV) & (e <= tab.e_max + _EMF_ROUND_OFF_MV))] = np.nan
+    return _shape_out(_inverse_polynomial(e, tab))
+
+
+def cold_junction_compensated_temperature(emf_measured_mV, t_cold_junction, *, type: str):
+    r"""Hot-junction temperature from the emf measured with the cold junction at a known temperature.
+
+    Parameters
+    ----------
+    emf_measured_mV : array_like of float
+        Emf measured at the terminals [mV], cold (reference) junction at ``t_cold_junction``.
+    t_cold_junction : array_like of float
+        Cold-junction temperature [degC] (ITS-90); broadcast against ``emf_measured_mV``.
+    type : str
+        Letter type (``"B"`` ... ``"T"``, lower case accepted).
+
+    Returns
+    -------
+    t : ndarray of float64 or float
+        Hot-junction temperature [degC]; NaN where an input is NaN, where
+        ``t_cold_junction`` is outside the reference range or where the compensated emf is
+        outside the inverse range.
+
+    Notes
+    -----
+    With the reference function :math:`E(t)` of :func:`thermocouple_emf` and its inverse
+    :math:`E^{-1}` (:func:`thermocouple_temperature`),
+
+    .. math:: t = E^{-1}\left(E_\mathrm{measured} + E(t_\mathrm{cj})\right).
+
+    References
+    ----------
+    .. [1] G. W. Burns et al., NIST Monograph 175, 1993.
+    .. [2] H. Preston-Thomas, "The International Temperature Scale of 1990 (ITS-90)",
+       Metrologia 27, 3-10, 1990.
+    """
+    e = np.asarray(emf_measured_mV, dtype=np.float64)
+    e_cj = thermocouple_emf(t_cold_junction, type=type)
+    return thermocouple_temperature(e + e_cj, type=type)
