@@ -15,7 +15,7 @@ import numpy as np
 from countmill import __version__
 from countmill.chanmap import ChannelMap, load_map
 from countmill.errors import InputError, UsageError
-from countmill.flags import Quality
+from countmill.flags import Flag, Quality, flag_name
 from countmill.pipeline.convert import Converter, Rows
 from countmill.pipeline.output import CsvSink, ParquetSink, RejectsSink
 from countmill.pipeline.reader import LogReader, Records, file_sha256
@@ -35,6 +35,8 @@ class ConversionResult:
     rejects: int
     #: channel name (None for unmapped) -> {quality level: count}
     quality_counts: dict[str | None, dict[int, int]] = field(default_factory=dict)
+    #: each reason seen per channel: {channel, flag, count, first, last}
+    flag_events: list[dict] = field(default_factory=list)
     source_sha256: str = ""
 
     @property
@@ -52,6 +54,7 @@ class ConversionResult:
             "rejects": self.rejects,
             "source_sha256": self.source_sha256,
             "quality": {str(k): v for k, v in self.quality_counts.items()},
+            "flags": self.flag_events,
         }
 
 
@@ -118,22 +121,53 @@ def _utc_text(instant_us: int) -> str | None:
 
 
 class _Tally:
-    """Quality counts per channel, accumulated chunk by chunk."""
+    """Quality counts and flag occurrences per channel, accumulated chunk by chunk."""
 
     def __init__(self, names: list[str]):
         self.names = names
         self.counts = np.zeros((len(names) + 1, 10), dtype=np.int64)
+        #: (channel index, flag name) -> [count, first time µs, last time µs]
+        self.flag_events: dict[tuple[int, str], list[int]] = {}
 
     def add(self, rows: Rows) -> None:
         index = np.where(rows.name < 0, len(self.names), rows.name)
-        np.add.at(self.counts, (index, rows.quality), 1)
+        # np.bincount on a combined key is much faster than np.add.at
+        key = index.astype(np.int64) * 10 + rows.quality
+        self.counts += np.bincount(key, minlength=self.counts.size).reshape(self.counts.shape)
+        flagged = np.flatnonzero(rows.flags)
+        if len(flagged) == 0:
+            return
+        flags, where, times = rows.flags[flagged], index[flagged], rows.time_us[flagged]
+        for flag in Flag:
+            hit = (flags & int(flag)) != 0
+            if not hit.any():
+                continue
+            for channel in np.unique(where[hit]).tolist():
+                t = times[hit & (where == channel)]
+                entry = self.flag_events.setdefault((channel, flag_name(flag)), [0, int(t.min()), int(t.max())])
+                entry[0] += len(t)
+                entry[1] = min(entry[1], int(t.min()))
+                entry[2] = max(entry[2], int(t.max()))
+
+    def label(self, i: int) -> str | None:
+        return self.names[i] if i < len(self.names) else None
 
     def as_dict(self) -> dict[str | None, dict[int, int]]:
         out = {}
         for i, row in enumerate(self.counts):
             if row.sum():
-                out[self.names[i] if i < len(self.names) else None] = {q: int(row[q]) for q in QUALITY_LEVELS if row[q]}
+                out[self.label(i)] = {q: int(row[q]) for q in QUALITY_LEVELS if row[q]}
         return out
+
+    def flag_list(self) -> list[dict]:
+        """Each reason seen per channel: count and first/last time (ISO 8601 UTC)."""
+        def iso(us: int) -> str:
+            return np.datetime64(us, "us").astype(str) + "Z"
+
+        return [
+            {"channel": self.label(i), "flag": name, "count": c, "first": iso(first), "last": iso(last)}
+            for (i, name), (c, first, last) in sorted(self.flag_events.items(), key=lambda kv: (kv[0][0], kv[1][1]))
+        ]
 
 
 def iter_chunks(blocks, chunk_rows: int):
@@ -248,6 +282,7 @@ def run_conversion(
         records=records,
         rejects=rejects.count,
         quality_counts=tally.as_dict(),
+        flag_events=tally.flag_list(),
         source_sha256=source_sha,
     )
 

@@ -23,3 +23,10 @@ def print_summary(result) -> None:
     for name, counts in result.quality_counts.items():
         label = name if name is not None else "(unmapped)"
         click.echo(f"{label:<22}" + "".join(f"{counts.get(int(q), 0):>9}" for q, _ in LEVELS))
+    if result.flag_events:
+        click.echo("")
+        click.echo(f"{'channel':<22} {'reason':<20} {'count':>7}  first … last (UTC)")
+        click.echo("-" * 96)
+        for event in result.flag_events:
+            label = event["channel"] if event["channel"] is not None else "(unmapped)"
+            click.echo(f"{label:<22} {event['flag']:<20} {event['count']:>7}  {event['first'][:19]} … {event['last'][:19]}")
