@@ -93,12 +93,16 @@ class QcSettings:
         return self.spike is not None or self.rate is not None or self.flat_seconds is not None
 
 
-@dataclass(frozen=True)
+@dataclass
 class CrossInput:
     """A channel value another stage or expression reads, and how old it may be."""
 
     name: str
     max_age_s: float
+    #: unit the reading stage wants; None keeps the source channel's unit
+    unit: str | None = None
+    #: (scale, offset) from the source channel's unit to ``unit``, set once the map is loaded
+    to_unit: tuple[float, float] = (1.0, 0.0)
 
 
 @dataclass

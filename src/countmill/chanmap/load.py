@@ -125,12 +125,7 @@ class _Loader:
         for revs in revisions.values():
             for rev in revs:
                 for need in rev.inputs:
-                    if need.name not in names_to_id:
-                        raise self.error(
-                            f"names channel {need.name!r}, which the map does not define",
-                            where=self.where(rev.id, rev.name),
-                            key="chain",
-                        )
+                    self.link_input(rev, need, revisions, names_to_id)
         order = self.dependency_order(revisions, names_to_id)
         return ChannelMap(
             path=self.path,
@@ -143,6 +138,30 @@ class _Loader:
             order=order,
             ids_by_name=names_to_id,
         )
+
+    def link_input(self, rev: ChannelRevision, need: CrossInput, revisions, names_to_id) -> None:
+        """Check a cross-channel input exists and convert its unit once, here."""
+        where = self.where(rev.id, rev.name)
+        if need.name not in names_to_id:
+            raise self.error(f"names channel {need.name!r}, which the map does not define", where=where, key="chain")
+        source_units = {r.unit for r in revisions[names_to_id[need.name]]}
+        if need.unit is None:
+            return
+        if len(source_units) > 1:
+            raise self.error(
+                f"channel {need.name!r} changes unit between revisions ({', '.join(sorted(source_units))}); "
+                "an input channel must keep one unit",
+                where=where,
+                key="chain",
+            )
+        (source_unit,) = source_units
+        if not same_dimension(source_unit, need.unit):
+            raise self.error(
+                f"reads channel {need.name!r} in {need.unit}, but that channel is in {source_unit!r}",
+                where=where,
+                key="chain",
+            )
+        need.to_unit = affine_conversion(source_unit, need.unit)
 
     @staticmethod
     def where(cid: Any, name: Any) -> str:
@@ -245,7 +264,7 @@ class _Loader:
             for need in stage.needs(params):
                 if need == spec.name:
                     raise self.error(f"stage '{name}' reads the channel itself", where=where, key=key)
-                inputs.append(CrossInput(need, max_age))
+                inputs.append(CrossInput(need, max_age, stage.needs_unit))
             unit = out_unit
         return steps, unit, inputs
 

@@ -146,6 +146,8 @@ class Converter:
         inputs = {}
         for need in rev.inputs:
             values, quality = self.latest[need.name].lookup(pos, rec.time_us[pos], round(need.max_age_s * US))
+            if need.to_unit != (1.0, 0.0):
+                values = values * need.to_unit[0] + need.to_unit[1]
             inputs[need.name] = values
             flags[np.isnan(values) & ~np.isnan(x)] |= int(Flag.INPUT_MISSING)
             flags[quality == Quality.SUSPECT] |= int(Flag.INPUT_SUSPECT)

@@ -71,6 +71,8 @@ class Stage:
     describe: Callable[[StageParams], str]
     #: names of other channels whose values the stage reads (cold junction, ...)
     needs: Callable[[StageParams], tuple[str, ...]] = lambda params: ()
+    #: unit the stage wants the values of the channels it reads in (converted at map load)
+    needs_unit: str | None = None
     #: the sensors-module function(s) behind the stage, for the docstring audit test
     physics: tuple[Callable, ...] = ()
 

@@ -118,6 +118,7 @@ THERMOCOUPLE = register(
         apply=_apply,
         describe=_describe,
         needs=_needs,
+        needs_unit="degC",
         physics=(thermocouple_temperature, thermocouple_emf),
     )
 )
