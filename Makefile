@@ -22,6 +22,7 @@ demo: $(VENV)/.installed
 	@mkdir -p demo_out
 	$(BIN)/countmill convert demo_logs/brewhouse-2026-11-03.csv --map channel_maps/brewhouse.toml -o demo_out/brewhouse-2026-11-03.parquet --summary; \
 	  rc=$$?; if [ $$rc -ne 0 ] && [ $$rc -ne 3 ]; then exit $$rc; fi
+	$(BIN)/countmill report demo_out/brewhouse-2026-11-03.parquet -o demo_out/report.html
 
 test: $(VENV)/.installed-test
 	$(BIN)/python -m pytest -q

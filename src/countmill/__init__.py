@@ -1,4 +1,8 @@
-"""countmill: turn data-logger raw codes into engineering units you can trust."""
+"""countmill: turn data-logger raw codes into engineering units you can trust.
+
+>>> import countmill
+>>> df = countmill.read("day.parquet")  # doctest: +SKIP
+"""
 
 from importlib.metadata import PackageNotFoundError, version as _version
 
@@ -7,4 +11,13 @@ try:
 except PackageNotFoundError:  # running from a source tree without install
     __version__ = "0.0.0+unknown"
 
-__all__ = ["__version__"]
+__all__ = ["__version__", "read"]
+
+
+def __getattr__(name: str):
+    # ``read`` pulls in pandas; load it on first use so the command line starts fast
+    if name == "read":
+        from countmill.reading import read
+
+        return read
+    raise AttributeError(f"module 'countmill' has no attribute {name!r}")

@@ -74,5 +74,7 @@ def convert_command(raw, map_path, output, chunk_rows, layout, every, summary, q
         elif not quiet:
             note = f", {result.rejects} rejected (see {result.rejects_path})" if result.rejects else ""
             click.echo(f"{path.name}: {result.rows} rows -> {result.output}{note}", err=True)
+        for line in getattr(result, "notes", ()):  # e.g. wide layout: samples too late for their bin
+            click.echo(f"countmill: note: {line}", err=True)
         worst = max(worst, result.exit_code) if worst != 1 else 1
     sys.exit(worst)
