@@ -296,7 +296,9 @@ class Converter:
                     continue
                 usable = sel[_usable(rows.value[sel], rows.flags[sel])]
                 state = self.series.setdefault(series_key, SeriesState(qc))
-                state.expire(int(rows.line[sel[-1]]) if len(sel) else 0)
+                # expire by the series' first line in this chunk: a later line would drop a value
+                # whose successor is near, when the chunk is long (output must not depend on it)
+                state.expire(int(rows.line[sel[0]]) if len(sel) else 0)
                 if len(usable) == 0:
                     continue
                 found, patches = state.test(rows.time_us[usable], rows.value[usable], rows.line[usable], global_rows[usable])
