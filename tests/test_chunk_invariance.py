@@ -160,9 +160,27 @@ def test_chunk_rows_with_csv_output(run_cli, write_map, write_log, tmp_path, bus
     assert texts[1] == texts[0] and texts[2] == texts[0]
 
 
+def test_spike_at_the_end_of_a_long_chunk(make_map, write_log, tmp_path):
+    # The last value of a chunk waits for its successor before the spike test. With chunks
+    # longer than the spike look-ahead (100 000 lines), the waiting value must still be
+    # judged when its successor is the very next line. 220 001 one-channel lines, a peak of
+    # 100 among 50s on the last line of the first 110 000-row chunk: the peak and both
+    # neighbours are flagged (|100 - 50| and |50 - 75| > 10), whatever the chunk size.
+    n, boundary = 220_001, 110_000
+    cmap = make_map([{"id": 1, "name": "tank", "unit": "degC", "chain": [{"stage": "linear", "slope": 1.0}], "qc": {"spike": 10.0}}],
+                    adc=EXACT_ADC, gains={0: 1}, input={"time": "unix_s"})
+    raw = tmp_path / "long.csv"
+    raw.write_text("".join(f"{i},1,{100 if i == boundary else 50},0\n" for i in range(1, n + 1)))
+    for rows in (boundary, 1000):
+        out = tmp_path / f"long-{rows}.parquet"
+        convert_file(raw, cmap, out, chunk_rows=rows)
+        flags = pq.read_table(out, columns=["flags"]).column("flags").to_numpy()
+        assert list(flags.nonzero()[0] + 1) == [boundary - 1, boundary, boundary + 1], rows
+
+
 def test_fall_back_hour_across_reader_blocks(make_map, write_log, tmp_path):
     # One record per second of local Berlin time from 01:30 to 03:30 on 2026-10-25, with the
-    # repeated hour 02:00-03:00 printed twice: about 300 kB, so with --chunk-rows 1 the reader
+    # repeated hour 02:00-03:00 printed twice: about 300 kB, so with --chunk-rows 7 the reader
     # cuts it into 64 kB blocks inside the repeated hour. The step back must be remembered
     # from block to block; the instants are checked against zoneinfo (PEP 495 fold).
     zone = zoneinfo.ZoneInfo("Europe/Berlin")
@@ -178,7 +196,7 @@ def test_fall_back_hour_across_reader_blocks(make_map, write_log, tmp_path):
     raw = write_log([(w.isoformat(), 1, 50, 0) for w, _ in printed])
     assert raw.stat().st_size > 4 * (64 << 10)
     expected = pd.Series([w.replace(tzinfo=zone, fold=f).astimezone(UTC) for w, f in printed])
-    for rows in (1, DEFAULT_CHUNK_ROWS):
+    for rows in (7, DEFAULT_CHUNK_ROWS):
         out = tmp_path / f"fold-{rows}.parquet"
         convert_file(raw, cmap, out, chunk_rows=rows)
         times = pq.read_table(out).column("time").to_pandas()

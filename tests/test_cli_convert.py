@@ -204,6 +204,20 @@ def test_gzip_output_equals_plain_output_including_lines(write_log, bench_map, c
     pd.testing.assert_frame_equal(read_rejects(packed.path), read_rejects(plain.path))
 
 
+@pytest.mark.parametrize("comment", [False, True], ids=["bulk", "line by line"])
+def test_csv_double_quoted_fields_read_like_plain_ones(write_log, bench_map, convert, comment):
+    # RFC 4180 quoting: "101" is the field 101. Lines after the first data line are read in
+    # bulk, unless their block holds a comment; then they are read line by line. Both agree.
+    plain = good_lines(6)
+    quoted = [f'"{t}",{c},"{code}",{g}' for t, c, code, g in plain]
+    lines = ['"time","channel","code","gain"', *quoted[:3], *(["# note"] if comment else []), *quoted[3:]]
+    result, out = convert(write_log(lines), bench_map, "quoted.parquet")
+    _, reference = convert(write_log(plain, "plain.csv"), bench_map, "plain.parquet")
+    assert result.exit_code == 0, result.output
+    pd.testing.assert_frame_equal(baseline_values(out.df), baseline_values(reference.df))
+    assert measured(out.df)["line"].tolist() == ([2, 3, 4, 6, 7, 8] if comment else [2, 3, 4, 5, 6, 7])
+
+
 def test_log_without_gain_column_means_gain_code_zero(write_log, make_map, convert):
     cmap = make_map(BENCH_CHANNELS, input={"columns": ["time", "channel", "code"]}, gains={0: 2, 1: 10})
     raw = write_log([(stamp(0), 1, 1000), (stamp(1), 1, 1500)], header="time,channel,code")
