@@ -265,14 +265,15 @@ def run_conversion(
             held, held_start, n = _release(converter, held, held_start, sink, tally, final=True)
             rows_written += n
             data_lines = reader.data_lines
+        if records + rejects.count != data_lines:  # every data line is a record or a reject
+            # checked before anything is published: exit 1 leaves nothing at the final path
+            raise InputError(f"{raw}: accounting error: {data_lines} data lines, {records} records, {rejects.count} rejects")
         sink.close()
         rejects_path = rejects.close()
     except BaseException:
         sink.abort()
         rejects.abort()
         raise
-    if records + rejects.count != data_lines:  # every data line is a record or a reject
-        raise InputError(f"{raw}: accounting error: {data_lines} data lines, {records} records, {rejects.count} rejects")
     return ConversionResult(
         source=raw,
         output=out,
