@@ -115,6 +115,13 @@ def test_all_bad_cases_together_accounting_excludes_derived_rows(write_log, benc
     assert "\ufffd" in rejects[rejects["line"] == 14]["text"].iloc[0]  # the 0xFF byte, replaced
 
 
+def test_rejects_text_has_no_line_ending_with_crlf(write_log, bench_map, convert):
+    raw = write_log(good_lines(2) + ["2026-01-01T00:00:09\t1\t5\t0"] + good_lines(2, start=3), newline="\r\n")
+    result, out = convert(raw, bench_map)
+    assert result.exit_code == 3
+    assert read_rejects(out.path)["text"].tolist() == ["2026-01-01T00:00:09\t1\t5\t0"]
+
+
 def test_complete_last_line_without_line_ending_is_a_row(write_log, bench_map, convert):
     # Implementation's choice (the contract lists "a truncated last line" as a reject): a last
     # line that lacks its line ending but parses completely is kept; only one that fails to

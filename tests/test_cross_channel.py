@@ -119,6 +119,15 @@ def test_input_from_an_earlier_line_with_a_later_time_is_missing(power_map, writ
     assert np.isnan(power_rows(out)["value"].iloc[0])
 
 
+def test_input_is_the_last_earlier_line_even_if_an_older_one_would_fit(power_map, write_log, convert):
+    # Implementation's reading of "latest value from an earlier line": the input's last
+    # earlier record decides; when its time is after the record's, the input is missing,
+    # even though an older record (t = 0, 10 A) would be at or before the record's time.
+    lines = [(at(0), 2, 10, 0), (at(20), 2, 12, 0), (at(10), 1, 200, 0)]
+    _, out = convert(write_log(lines), power_map())
+    assert np.isnan(power_rows(out)["value"].iloc[0])
+
+
 def test_bad_input_is_skipped_for_the_latest_good_one(power_map, write_log, convert):
     # code 255 is the 8-bit ADC's upper rail: saturated_high (bad), not a usable input; the
     # derived value uses the good 10 A before it

@@ -132,6 +132,16 @@ def test_rate_of_change_boundary_is_not_flagged(make_map, write_log, convert):
     assert flagged(out, "rate_of_change") == [False, False, True]
 
 
+def test_rate_is_not_judged_across_equal_or_earlier_times(make_map, write_log, convert):
+    # Implementation's choice (contract silent on dt <= 0): a duplicate or earlier time gives
+    # no rate of change; those records carry time_duplicate / time_out_of_order instead.
+    # The steps here would be far above 1/s with any positive dt.
+    cmap = make_map([level(qc={"rate": 1.0})], adc=EXACT_ADC, gains={0: 1})
+    _, out = convert(series_log(write_log, [0, 10, 10, 5, 20], [20, 21, 40, 60, 61]), cmap)
+    assert not any(flagged(out, "rate_of_change"))
+    assert out.all_names() == [[], [], ["time_duplicate"], ["time_out_of_order"], []]
+
+
 # --------------------------------------------------------------------------- flat line
 
 
