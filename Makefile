@@ -32,3 +32,11 @@ bench: $(VENV)/.installed-test
 
 clean:
 	rm -rf $(VENV) demo_out
+
+# Three demo days in demo_inbox/, converted by the nightly batch into demo_out/batch/
+# (exit 3 is fine: the demo days hold lines the converter rejects on purpose).
+demo-batch: $(VENV)/.installed
+	$(BIN)/python demo_logs/make_day.py --days 3 --out demo_inbox
+	@mkdir -p demo_out
+	$(BIN)/countmill batch demo_inbox --map channel_maps/brewhouse.toml --out demo_out/batch --settle 0; \
+	  rc=$$?; if [ $$rc -ne 0 ] && [ $$rc -ne 3 ]; then exit $$rc; fi
