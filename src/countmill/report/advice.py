@@ -61,11 +61,13 @@ class AdcView:
 
     @property
     def share_used(self) -> float:
-        """Share of the ADC's codes between the lowest and highest code logged."""
-        used = self.counts.code[self.counts.count > 0]
-        if not len(used):
+        """Share of the ADC's codes between the lowest and highest code logged off the rails."""
+        code = self.counts.code[self.counts.count > 0]
+        if self.adc is not None:
+            code = code[(code > self.lowest) & (code < self.highest)]
+        if not len(code):
             return 0.0
-        return (int(used.max()) - int(used.min()) + 1) / (self.highest - self.lowest + 1)
+        return (int(code.max()) - int(code.min()) + 1) / (self.highest - self.lowest + 1)
 
 
 def _gain_label(code: int, gains: dict[int, float] | None) -> str:

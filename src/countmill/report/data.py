@@ -1,10 +1,10 @@
 """Summarise a tidy countmill output for the day report, in one streaming pass.
 
 Only the columns the report needs are read (``time channel code gain_code value quality
-flags``), in batches of about a million rows; every statistic is a numpy ``bincount`` or
-``minimum.at``/``maximum.at`` per batch, or an Arrow hash aggregation for the code
-histograms, so memory does not grow with the day and a large day reads far faster than
-it converts.
+flags``), in batches of 262,144 rows (the next one decoded in a thread meanwhile); every
+statistic is a numpy ``bincount`` or ``minimum.at``/``maximum.at`` per batch, or an Arrow
+hash aggregation for the code histograms, so memory does not grow with the day and a large
+day reads far faster than it converts.
 
 Plot decimation: the period is cut into ``columns`` equal slices (one per pixel column of
 the plot); per channel, slice and quality class (usable: good or not evaluated; suspect;
@@ -30,7 +30,7 @@ from countmill.errors import InputError, UsageError
 from countmill.flags import ALL_FLAGS, Quality, flag_name
 
 NEEDED = ["time", "channel", "code", "gain_code", "value", "quality", "flags"]
-BATCH_ROWS = 1 << 20
+BATCH_ROWS = 1 << 18
 LEVELS = [int(q) for q in Quality]  # 1 2 3 4 9
 #: plot classes: usable (good, not evaluated), suspect, bad
 CLASSES = ("usable", "suspect", "bad")
@@ -136,7 +136,9 @@ def _open(path: Path):
     missing = [c for c in NEEDED if c not in names]
     if missing:
         raise UsageError(f"{path}: the report needs the tidy layout (no column {', '.join(missing)})")
-    pf = pq.ParquetFile(path, read_dictionary=["channel"])
+    # pre_buffer=False: with pre-buffering the reader keeps every row group it has read until
+    # the file closes, and memory would grow with the day
+    pf = pq.ParquetFile(path, read_dictionary=["channel"], pre_buffer=False)
     raw = (pf.schema_arrow.metadata or {}).get(b"countmill") or (pf.metadata.metadata or {}).get(b"countmill")
     info = json.loads(raw) if raw else None
     return info, lambda: pf.iter_batches(batch_size=BATCH_ROWS, columns=NEEDED), _parquet_period(pf)

@@ -129,7 +129,7 @@ def channel_section(ch: ChannelSummary, series: bytes, views: list[tuple[AdcView
             what = f"{adc['bits']}-bit {adc['coding']} ADC, {adc['span'][0]:g} … {adc['span'][1]:g} V, LSB {lsb * 1e6:.4g} µV"
         else:
             what = "ADC set-up not recorded in this file"
-        parts.append(f"<h3 class='muted'>ADC and gain{_e(revs)}: {_e(what)}; {100 * view.share_used:.2g} % of the codes used</h3>")
+        parts.append(f"<h3 class='muted'>ADC and gain{_e(revs)}: {_e(what)}; readings off the rails span {100 * view.share_used:.2g} % of the codes</h3>")
         parts.append(f"<div class='codes'>{picture}</div>")
         uses = "".join(
             f"<tr><td class='name'>{u.gain_code}</td><td>{'×%g' % u.gain if u.gain is not None else 'unknown'}</td>"

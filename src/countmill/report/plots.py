@@ -2,10 +2,11 @@
 
 The time-series plot draws, per pixel column, the span between the lowest and the highest
 usable value (good or not evaluated) as one connected line, so that a one-sample spike is
-still a visible stroke on a day of millions of samples. Suspect samples are orange rings,
-bad samples red crosses (clipped to the plot's edge when off scale), samples without a value
-grey ticks along the bottom. Range limits are red dashed lines, expected limits orange dotted
-ones, each drawn over the time its channel revision was in force.
+still a visible stroke on a day of millions of samples. Suspect samples are orange, bad
+ones red (a ring or a cross marks a lone column); suspect or bad values beyond the axis are
+triangles at its edge; samples without a value are grey ticks along the bottom. Range
+limits are red dashed lines, expected limits orange dotted ones, each drawn over the time
+its channel revision was in force.
 """
 
 from __future__ import annotations
@@ -80,18 +81,24 @@ def series_png(summary: ChannelSummary, day: DaySummary, timezone: str | None) -
     y = np.empty(2 * len(x))
     y[0::2], y[1::2] = low["usable"], high["usable"]
     ax.plot(np.repeat(x, 2), y, color=COLORS["usable"], linewidth=0.8, label="good / not evaluated")
+    inset = 0.015 * (yhi - ylo)  # off-scale samples are drawn just inside the frame, not on it
     for cls, marker, kwargs in (("suspect", "o", {"facecolors": "none", "edgecolors": COLORS["suspect"]}),
                                 ("bad", "x", {"color": COLORS["bad"]})):
-        lo, hi = np.clip(low[cls], ylo, yhi), np.clip(high[cls], ylo, yhi)
+        lo, hi = np.clip(low[cls], ylo + inset, yhi - inset), np.clip(high[cls], ylo + inset, yhi - inset)
         present = np.isfinite(lo)
         if not present.any():
             continue
         y[0::2], y[1::2] = lo, hi
-        ax.plot(np.repeat(x, 2), y, color=COLORS[cls], linewidth=0.9, zorder=3)
+        ax.plot(np.repeat(x, 2), y, color=COLORS[cls], linewidth=0.9, zorder=3, label=cls)
         # a column whose neighbours hold none of this class would be an invisible dot: mark it
         alone = present & ~np.r_[False, present[:-1]] & ~np.r_[present[1:], False]
         pts_x, pts_y = np.r_[x[alone], x[alone]], np.r_[lo[alone], hi[alone]]
-        ax.scatter(pts_x, pts_y, s=16, marker=marker, linewidths=0.9, label=cls, zorder=4, **kwargs)
+        if alone.any():
+            ax.scatter(pts_x, pts_y, s=16, marker=marker, linewidths=0.9, zorder=4, **kwargs)
+        for off, edge_y, arrow in ((low[cls] < ylo, ylo + inset, "v"), (high[cls] > yhi, yhi - inset, "^")):
+            if off.any():
+                ax.scatter(x[off], np.full(off.sum(), edge_y), s=22, marker=arrow, color=COLORS[cls], zorder=4,
+                           label=f"{cls}, off scale")
     gaps = summary.missing > 0
     if gaps.any():
         edge = blended_transform_factory(ax.transData, ax.transAxes)

@@ -14,7 +14,7 @@ import numpy as np
 from countmill.report.advice import AdcView
 
 WIDTH, HEIGHT = 1100, 210
-PANEL_W, PANEL_H = 420, 140
+PANEL_W, PANEL_H = 400, 140
 TOP, LEFT = 26, 58
 GAIN_COLORS = ["#1f5f99", "#2a9d4b", "#8e44ad", "#d35400", "#16a085", "#7f8c8d"]
 RAIL = "#c0182b"
@@ -84,8 +84,8 @@ def codes_svg(view: AdcView, title: str) -> str:
     parts = [f'<svg xmlns="http://www.w3.org/2000/svg" role="img" width="{WIDTH}" height="{HEIGHT}" viewBox="0 0 {WIDTH} {HEIGHT}" '
              f'font-family="sans-serif"><title>{_e(title)}</title>']
     parts += _panel(LEFT, view.lowest, view.highest, 256, series, "whole ADC range (rails in red)", rails)
-    parts += _panel(LEFT + PANEL_W + 70, zlo, zhi, 200, series, f"codes used: {zlo} … {zhi}", rails)
-    x_legend = LEFT + 2 * PANEL_W + 90
+    parts += _panel(LEFT + PANEL_W + 60, zlo, zhi, 200, series, f"codes used: {zlo} … {zhi}", rails)
+    x_legend = LEFT + 2 * PANEL_W + 80
     parts.append(f'<text x="{x_legend}" y="{TOP + 4}" font-size="11" fill="#333">samples per code (log)</text>')
     for i, (colour, label) in enumerate(legend):
         yy = TOP + 22 + 18 * i
