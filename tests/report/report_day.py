@@ -9,6 +9,8 @@ over ±2.048 V (1 mV per code; common practice for a 2.048 V reference, no sourc
 * ``beam_strain`` [microstrain], gain code 0: healthy;
 * ``loop_level`` [percent], 4-20 mA over 200 ohm on its own 12-bit straight-binary ADC over
   0 … 4.096 V: healthy, except 10 minutes of a broken loop at code 0 (the lower rail);
+* ``probe_volts`` [V], gain code 0 (×1): a small signal of ±0.1 V, which gain code 1 (×10)
+  would still keep inside the span;
 * ``double_volts`` [V]: derived, twice ``bench_volts``.
 """
 
@@ -72,13 +74,20 @@ coding = "straight"
 [channel.gains]
 0 = 1
 
+[[channel]]
+id = 5
+name = "probe_volts"
+unit = "V"
+range = [-2.0, 2.0]
+chain = [ { stage = "linear", slope = 1.0, intercept = 0.0 } ]
+
 [[derived]]
 name = "double_volts"
 unit = "V"
 expression = "bench_volts * 2"
 """
 
-CHANNELS = ["bench_volts", "vessel_pressure", "beam_strain", "loop_level", "double_volts"]
+CHANNELS = ["bench_volts", "vessel_pressure", "beam_strain", "loop_level", "probe_volts", "double_volts"]
 SCANS = 720
 SPIKE_SCAN = 333
 SPIKE_CODE = 1990
@@ -100,7 +109,9 @@ def write_day(folder: Path) -> tuple[Path, Path]:
             pressure = (int(400 + 40 * np.sin(phase)) + int(rng.integers(-2, 3)), 1)
         strain = int(900 * np.cos(phase)) + int(rng.integers(-3, 4))
         loop = 0 if 500 <= k < 560 else int(2400 + 400 * np.sin(phase))  # 12 mA = 2.4 V over 200 ohm
-        lines += [f"{stamp},1,{volts},0", f"{stamp},2,{pressure[0]},{pressure[1]}", f"{stamp},3,{strain},0", f"{stamp},4,{loop},0"]
+        probe = int(100 * np.sin(phase)) + int(rng.integers(-2, 3))
+        lines += [f"{stamp},1,{volts},0", f"{stamp},2,{pressure[0]},{pressure[1]}", f"{stamp},3,{strain},0", f"{stamp},4,{loop},0",
+                  f"{stamp},5,{probe},0"]
     (folder / "rig.toml").write_text(MAP)
     raw = folder / "rig-2026-06-10.csv"
     raw.write_text("\n".join(lines) + "\nthis line is not a record\n")

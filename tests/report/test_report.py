@@ -84,7 +84,17 @@ def test_rail_advice_fires_only_where_a_channel_sat_at_a_rail(page, crafted_day)
     assert "class='advice fault'" in found["loop_level"] and "lower rail (code 0)" in found["loop_level"]
     for healthy in ("bench_volts", "beam_strain", "double_volts"):
         assert "class='advice" not in found[healthy], healthy
-    assert crafted_day["result"].advice == {"vessel_pressure": ["rail"], "loop_level": ["fault"]}
+    assert crafted_day["result"].advice == {"vessel_pressure": ["rail"], "loop_level": ["fault"], "probe_volts": ["resolution"]}
+
+
+def test_resolution_advice_from_the_gain_table(page):
+    probe = sections(page)["probe_volts"]
+    # reference: the map's gain table (×1 → ×10 is 10× finer) and LSB = span / 2^bits
+    # = 4.096 V / 4096 = 1 mV at the ADC, so 100 µV at the amplifier input with ×10;
+    # ×100 would put ±0.1 V at ±10 V, beyond the ±2.048 V span
+    assert "class='advice resolution'" in probe
+    assert "Gain code 1 (×10) would still keep them inside the span with 10 % headroom and give 10× finer resolution" in probe
+    assert "one LSB = 100 µV at the amplifier input instead of 1000 µV" in probe
 
 
 def test_cautions_follow_the_unit_dimension(page):

@@ -28,6 +28,7 @@ from countmill.units import parse_unit
 
 HEADROOM = 0.9  # share of the way from 0 V to each end of the span a signal may use
 MIN_GAIN_STEP = 2.0
+MIN_SAMPLES = 10  # fewer readings say too little about a signal's extremes to advise a gain
 
 
 @dataclass
@@ -160,7 +161,7 @@ def _advise(view: AdcView, summary: ChannelSummary) -> None:
 
 def _advise_resolution(view: AdcView, summary: ChannelSummary, total: int) -> None:
     main = max(view.uses, key=lambda u: u.count)
-    if main.min_code is None or main.count < 0.5 * total:
+    if main.min_code is None or main.count < 0.5 * total or main.count < MIN_SAMPLES:
         return
     share = (main.max_code - main.min_code + 1) / (view.highest - view.lowest + 1)
     label = _gain_label(main.gain_code, view.gains)
@@ -193,8 +194,8 @@ def _advise_resolution(view: AdcView, summary: ChannelSummary, total: int) -> No
         "resolution",
         f"With {label} the readings used {100 * share:.2g} % of the ADC codes. {_gain_label(best, view.gains).capitalize()} "
         f"would still keep them inside the span with 10 % headroom and give {n:g}× finer resolution "
-        f"(one LSB = {lsb / view.gains[best] * 1e6:.3g} µV at the amplifier input instead of "
-        f"{lsb / main.gain * 1e6:.3g} µV), if the signal stays within this period's extremes." + check,
+        f"(one LSB = {lsb / view.gains[best] * 1e6:.4g} µV at the amplifier input instead of "
+        f"{lsb / main.gain * 1e6:.4g} µV), if the signal stays within this period's extremes." + check,
     ))
 
 

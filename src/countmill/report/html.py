@@ -73,7 +73,7 @@ def header(day: DaySummary) -> str:
         ("converted file", day.path.name),
         ("raw source", f"{source.get('name', '?')}  sha256 {source.get('sha256', '?')}"),
         ("channel map", f"{cmap.get('name', '?')} ({cmap.get('path', '?')})  sha256 {cmap.get('sha256', '?')}"),
-        ("period", f"{_when(day.start_us, zone)} to {_when(day.end_us, zone)}"),
+        ("period", f"{_when(day.start_us, zone)} to {_when(day.end_us, zone)}" if day.rows else "no rows"),
         ("rows", f"{day.rows}" + (f", of which {day.unmapped} from unmapped channels" if day.unmapped else "")),
         ("rejected lines", rejects),
         ("converted with", f"countmill {info.get('version', '?')}; report by countmill {__version__}"),

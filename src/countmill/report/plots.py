@@ -116,7 +116,7 @@ def series_png(summary: ChannelSummary, day: DaySummary, timezone: str | None) -
                 elif f"{kind} {v:g}" not in off_scale:
                     off_scale.append(f"{kind} {v:g}")
     ax.set_ylim(ylo, yhi)
-    ax.set_xlim(_to_days(day.start_us), _to_days(day.end_us))
+    ax.set_xlim(_to_days(day.start_us), _to_days(max(day.end_us, day.start_us + 1_000_000)))  # one instant: 1 s wide
     zone = ZoneInfo(timezone) if timezone else None
     locator = mdates.AutoDateLocator(tz=zone)
     ax.xaxis.set_major_locator(locator)
