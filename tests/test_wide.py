@@ -258,3 +258,51 @@ def test_cli_wide_and_bad_every(rig, tmp_path):
     bad = runner.invoke(cli, ["convert", str(raw), "--map", str(cmap), "--layout", "wide", "--every", "3 parsecs", "-o", str(tmp_path / "x.csv")])
     assert bad.exit_code == 2  # contract §2: usage error, nothing written
     assert not (tmp_path / "x.csv").exists()
+
+
+REVISED_MAP = """
+[map]
+name = "revised-rig"
+timezone = "UTC"
+
+[adc]
+bits = 12
+span = [0.0, 4.096]
+coding = "straight"
+
+[gains]
+0 = 1
+
+[[channel]]
+id = 1
+name = "tank_temp"
+unit = "degC"
+chain = [ { stage = "linear", slope = 100.0, intercept = 0.0 } ]
+
+[[channel]]
+id = 1
+from = 2026-03-01T00:30:00
+name = "tank_temp"
+unit = "degF"
+chain = [ { stage = "linear", slope = 180.0, intercept = 32.0 } ]
+"""
+
+
+def test_earlier_revision_in_another_unit_is_converted(tmp_path):
+    cmap = tmp_path / "revised.toml"
+    cmap.write_text(REVISED_MAP)
+    lines = ["time,channel,code,gain"] + [
+        f"{np.datetime64('2026-03-01T00:00:00', 's') + np.timedelta64(20 * k, 's')}Z,1,{250 + k % 7},0" for k in range(180)
+    ]
+    raw = tmp_path / "revised.csv"
+    raw.write_text("\n".join(lines) + "\n")
+    convert_file(raw, cmap, tmp_path / "tidy.parquet")
+    convert_file(raw, cmap, tmp_path / "wide.parquet", layout="wide", every="10min")
+    tidy = pd.read_parquet(tmp_path / "tidy.parquet")
+    # reference: the definition of the Fahrenheit scale, degF = degC * 9/5 + 32
+    in_f = np.where(tidy["unit"] == "degC", tidy["value"] * 9 / 5 + 32, tidy["value"])
+    want = pd.Series(in_f).groupby(tidy["time"].dt.floor("10min").to_numpy()).mean()
+    wide = pd.read_parquet(tmp_path / "wide.parquet")
+    assert set(tidy["unit"]) == {"degC", "degF"}
+    np.testing.assert_allclose(wide["tank_temp"].to_numpy(), want.to_numpy(), rtol=1e-12)
+    assert pq.read_schema(tmp_path / "wide.parquet").field("tank_temp").metadata[b"units"] == b"degF"
