@@ -11,7 +11,9 @@ try:
 except PackageNotFoundError:  # running from a source tree without install
     __version__ = "0.0.0+unknown"
 
-__all__ = ["__version__", "read"]
+from countmill import flags  # noqa: E402  (light: numpy only; ``countmill.flags.decode``)
+
+__all__ = ["__version__", "flags", "read"]
 
 
 def __getattr__(name: str):
