@@ -19,6 +19,7 @@ from countmill.flags import Flag, Quality, flag_name
 from countmill.pipeline.convert import Converter, Rows
 from countmill.pipeline.output import CsvSink, ParquetSink, RejectsSink
 from countmill.pipeline.reader import LogReader, Records, file_sha256
+from countmill.pipeline.stream import BackgroundWriter, InThread, Prefetch
 
 QUALITY_LEVELS = tuple(int(q) for q in Quality)
 DEFAULT_CHUNK_ROWS = 250_000
@@ -239,41 +240,64 @@ def run_conversion(
 
     converter = Converter(cmap)
     out.parent.mkdir(parents=True, exist_ok=True)
-    try:
-        source_sha = file_sha256(raw)
-    except OSError as exc:
-        raise InputError(f"{raw}: cannot read: {exc.strerror}") from None
-    sink = make_sink(converter, provenance(cmap, raw, source_sha))
-    rejects = RejectsSink(out)
+
+    def source_hash() -> str:
+        try:
+            return file_sha256(raw)
+        except OSError as exc:
+            raise InputError(f"{raw}: cannot read: {exc.strerror}") from None
+
+    # Three stages side by side (see countmill.pipeline.stream): the source is hashed and
+    # read ahead in helper threads, converted here, and written by a third thread, which
+    # opens the sink once the hash (part of the provenance) is known.
+    digest = InThread(source_hash, name="countmill-hash")
     tally = _Tally(converter.names)
+
+    def open_sink():
+        return make_sink(converter, provenance(cmap, raw, digest.result()))
+
+    def write(sink, rows: Rows) -> None:
+        sink.write(rows)
+        tally.add(rows)
+
+    writer = BackgroundWriter(open_sink, write)
+    rejects = RejectsSink(out)
     held: list[Rows] = []
     held_start = 0  # global index of the first held row
     rows_written = 0
     records = 0
     try:
         with LogReader(raw, cmap.input, cmap.timezone, block_bytes=_block_bytes(chunk_rows)) as reader:
-            for chunk in iter_chunks(reader.blocks(), chunk_rows):
-                rejects.write(chunk.rejects)
-                if len(chunk):
-                    records += len(chunk)
-                    held.append(converter.convert(chunk))
-                    converter.expire_all(int(chunk.line[-1]))
-                    held, held_start, n = _release(converter, held, held_start, sink, tally, final=False)
-                    rows_written += n
-                if progress is not None:
-                    progress(reader.bytes_read, reader.total_bytes)
-            held, held_start, n = _release(converter, held, held_start, sink, tally, final=True)
+            chunks = Prefetch(iter_chunks(reader.blocks(), chunk_rows), name="countmill-read")
+            try:
+                for chunk in chunks:
+                    rejects.write(chunk.rejects)
+                    if len(chunk):
+                        records += len(chunk)
+                        held.append(converter.convert(chunk))
+                        converter.expire_all(int(chunk.line[-1]))
+                        held, held_start, n = _release(converter, held, held_start, writer.put, final=False)
+                        rows_written += n
+                    if progress is not None:
+                        progress(reader.bytes_read, reader.total_bytes)
+            finally:
+                chunks.close()
+            held, held_start, n = _release(converter, held, held_start, writer.put, final=True)
             rows_written += n
             data_lines = reader.data_lines
         if records + rejects.count != data_lines:  # every data line is a record or a reject
             # checked before anything is published: exit 1 leaves nothing at the final path
             raise InputError(f"{raw}: accounting error: {data_lines} data lines, {records} records, {rejects.count} rejects")
+        sink = writer.finish()
         sink.close()
         rejects_path = rejects.close()
     except BaseException:
-        sink.abort()
+        sink = writer.stop()
+        if sink is not None:
+            sink.abort()
         rejects.abort()
         raise
+    source_sha = digest.result()
     return ConversionResult(
         source=raw,
         output=out,
@@ -292,8 +316,8 @@ def _block_bytes(chunk_rows: int) -> int:
     return int(min(16 << 20, max(64 << 10, chunk_rows * 48)))
 
 
-def _release(converter: Converter, held: list[Rows], held_start: int, sink, tally: _Tally, final: bool):
-    """Write held rows that no pending spike decision still needs; patch spike flags first."""
+def _release(converter: Converter, held: list[Rows], held_start: int, emit: Callable[[Rows], None], final: bool):
+    """Emit held rows that no pending spike decision still needs; patch spike flags first."""
     if not held:
         return held, held_start, 0
     buffer = Rows.concat(held) if len(held) > 1 else held[0]
@@ -308,7 +332,6 @@ def _release(converter: Converter, held: list[Rows], held_start: int, sink, tall
     if stop == 0:
         return [buffer], held_start, 0
     done = buffer.take(slice(0, stop))
-    sink.write(done)
-    tally.add(done)
+    emit(done)
     rest = buffer.take(slice(stop, None))
     return ([rest] if len(rest) else []), held_start + stop, stop

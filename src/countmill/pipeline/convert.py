@@ -1,10 +1,12 @@
 """Convert record arrays into tidy output rows, one chunk at a time.
 
-The loop per chunk is short: group records by channel once; for each channel in
-dependency order, run ADC → gain → chain → unit → calibration → stateless tests → stateful
-tests; then the derived channels; then assemble rows in input order, each derived row right
-after the record that triggered it. Everything that crosses chunk boundaries lives in
-small named state objects (:class:`ClockState`, :class:`SeriesState`, :class:`LatestValue`).
+The loop per chunk is short: group records by channel once (the chunk is laid out channel
+by channel, each channel's records contiguous and in file order); for each channel in
+dependency order, run ADC → gain → chain → unit → calibration → stateless tests; then the
+derived channels; then the stateful tests per channel; then lay the rows out in input
+order, each derived row right after the record that triggered it. Everything that crosses
+chunk boundaries lives in small named state objects (:class:`ClockState`,
+:class:`SeriesState`, :class:`LatestValue`).
 """
 
 from __future__ import annotations
@@ -13,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from countmill.chanmap.compiled import ChannelMap, ChannelRevision, DerivedChannel
+from countmill.chanmap.compiled import BEGINNING, ChannelMap, ChannelRevision, DerivedChannel
 from countmill.flags import BAD_MASK, Flag, Quality, combine_quality
 from countmill.pipeline.lookup import LatestValue
 from countmill.pipeline.reader import Records
@@ -48,7 +50,12 @@ class Rows:
 
     @property
     def quality(self) -> np.ndarray:
-        return combine_quality(self.value, self.flags, self.evaluated)
+        """Quality level per row, computed once (rows are final when they are read out:
+        spike flags are patched before :meth:`take` makes the rows that are written)."""
+        quality = self.__dict__.get("_quality")
+        if quality is None:
+            quality = self.__dict__["_quality"] = combine_quality(self.value, self.flags, self.evaluated)
+        return quality
 
     def take(self, index) -> "Rows":
         return Rows(**{k: getattr(self, k)[index] for k in self.__dataclass_fields__})
@@ -86,71 +93,67 @@ class Converter:
 
     # --- per chunk -------------------------------------------------------------------------
     def convert(self, rec: Records) -> Rows:
-        n = len(rec)
-        value = np.full(n, np.nan)
-        volts = np.full(n, np.nan)
-        flags = rec.time_flags.copy()
-        name = np.full(n, -1, dtype=np.int32)
-        unit = np.full(n, -1, dtype=np.int32)
-        evaluated = np.zeros(n, dtype=bool)
-        work = _Chunk(rec, value, volts, flags, name, unit, evaluated)
-
-        order = np.argsort(rec.channel, kind="stable")
-        ids, starts = np.unique(rec.channel[order], return_index=True)
-        bounds = dict(zip(ids.tolist(), zip(starts.tolist(), np.append(starts[1:], n).tolist())))
+        work = _Chunk.grouped(rec)
         for cid in self.cmap.order:
-            if cid in bounds:
-                lo, hi = bounds.pop(cid)
-                self._convert_channel(work, cid, order[lo:hi])
-        for cid, (lo, hi) in bounds.items():  # channels the map does not know
-            flags[order[lo:hi]] |= int(Flag.UNMAPPED_CHANNEL)
+            span = work.spans.get(cid)
+            if span is not None:
+                self._convert_channel(work, cid, *span)
+        for cid, (lo, hi) in work.spans.items():  # channels the map does not know
+            if cid not in self.cmap.channels:
+                work.flags[lo:hi] |= int(Flag.UNMAPPED_CHANNEL)
 
         derived_parts = [self._derive(work, d) for d in self.cmap.derived]
-        rows = self._assemble(work, derived_parts)
-        self._stateful_tests(work, rows)
+        row_of = _row_positions(len(rec), derived_parts)
+        extra = np.zeros(len(rec), dtype=np.int64)  # flags of the stateful tests
+        for cid, (lo, hi) in work.spans.items():
+            if cid in self.cmap.channels:
+                self._test_channel(work, cid, lo, hi, row_of, extra)
+        for part in derived_parts:
+            if part is not None:
+                self._test_derived(work, part)
+        rows = self._assemble(work, extra, row_of, derived_parts)
         for latest in self.latest.values():
             latest.end_chunk()
         self.rows_emitted += len(rows)
         return rows
 
-    def _convert_channel(self, work: "_Chunk", cid: int, positions: np.ndarray) -> None:
-        rec = work.rec
+    def _convert_channel(self, work: "_Chunk", cid: int, lo: int, hi: int) -> None:
         revisions = self.cmap.channels[cid]
-        times = rec.time_us[positions]
+        if len(revisions) == 1 and revisions[0].valid_from_us == BEGINNING:
+            self._convert_revision(work, revisions[0], slice(lo, hi))
+            return
         starts = np.array([r.valid_from_us for r in revisions], dtype=np.int64)
-        which = np.searchsorted(starts, times, side="right") - 1
-        work.flags[positions[which < 0]] |= int(Flag.UNMAPPED_CHANNEL)
+        which = np.searchsorted(starts, work.time_us[lo:hi], side="right") - 1
+        work.flags[lo + np.flatnonzero(which < 0)] |= int(Flag.UNMAPPED_CHANNEL)
         for k, rev in enumerate(revisions):
-            sel = positions[which == k]
+            sel = lo + np.flatnonzero(which == k)
             if len(sel):
                 self._convert_revision(work, rev, sel)
-                usable = _usable(work.value[sel], work.flags[sel])
-                if usable.any():
-                    good = sel[usable]
-                    q = combine_quality(work.value[good], work.flags[good], True)
-                    self.latest[rev.name].add(good, rec.time_us[good], work.value[good], q)
 
-    def _convert_revision(self, work: "_Chunk", rev: ChannelRevision, pos: np.ndarray) -> None:
-        rec = work.rec
-        code = rec.code[pos]
-        flags = np.zeros(len(pos), dtype=np.int64)
+    def _convert_revision(self, work: "_Chunk", rev: ChannelRevision, sel) -> None:
+        """Convert the records at ``sel`` (a slice or index array of the grouped chunk)."""
+        code = work.code[sel]
+        times = work.time_us[sel]
+        flags = np.zeros(len(code), dtype=np.int64)
         lowest, highest = valid_code_range(rev.adc.bits, rev.adc.coding)
         flags[(code < lowest) | (code > highest)] |= int(Flag.INVALID_CODE)
         flags[code == lowest] |= int(Flag.SATURATED_LOW)
         flags[code == highest] |= int(Flag.SATURATED_HIGH)
         at_adc = code_to_volts(code, bits=rev.adc.bits, span=rev.adc.span, coding=rev.adc.coding)
-        x = amplifier_input_volts(at_adc, rec.gain[pos], rev.gains)
+        x = amplifier_input_volts(at_adc, work.gain[sel], rev.gains)
         flags[np.isnan(x) & ~np.isnan(at_adc)] |= int(Flag.UNKNOWN_GAIN)
-        work.volts[pos] = x
+        work.volts[sel] = x
 
         inputs = {}
-        for need in rev.inputs:
-            values, quality = self.latest[need.name].lookup(pos, rec.time_us[pos], round(need.max_age_s * US))
-            if need.to_unit != (1.0, 0.0):
-                values = values * need.to_unit[0] + need.to_unit[1]
-            inputs[need.name] = values
-            flags[np.isnan(values) & ~np.isnan(x)] |= int(Flag.INPUT_MISSING)
-            flags[quality == Quality.SUSPECT] |= int(Flag.INPUT_SUSPECT)
+        if rev.inputs:
+            positions = work.order[sel]
+            for need in rev.inputs:
+                values, quality = self.latest[need.name].lookup(positions, times, round(need.max_age_s * US))
+                if need.to_unit != (1.0, 0.0):
+                    values = values * need.to_unit[0] + need.to_unit[1]
+                inputs[need.name] = values
+                flags[np.isnan(values) & ~np.isnan(x)] |= int(Flag.INPUT_MISSING)
+                flags[quality == Quality.SUSPECT] |= int(Flag.INPUT_SUSPECT)
         context = StageContext(inputs=inputs)
         for step in rev.chain:
             result = step.stage.apply(x, step.params, context)
@@ -163,31 +166,43 @@ class Converter:
         if rev.calibration is not None:
             x = np.polynomial.polynomial.polyval(x, rev.calibration.coefficients)
             if rev.calibration.overdue_from_us is not None:
-                flags[rec.time_us[pos] >= rev.calibration.overdue_from_us] |= int(Flag.CALIBRATION_OVERDUE)
+                flags[times >= rev.calibration.overdue_from_us] |= int(Flag.CALIBRATION_OVERDUE)
         flags |= limit_flags(x, rev.range, rev.expect)
-        work.value[pos] = x
-        work.flags[pos] |= flags
-        work.name[pos] = self.name_index[rev.name]
-        work.unit[pos] = self.unit_index[rev.unit]
-        work.evaluated[pos] = True
-        work.revision_of[pos] = rev.revision
+        flags |= work.flags[sel]
+        work.value[sel] = x
+        work.flags[sel] = flags
+        work.name[sel] = self.name_index[rev.name]
+        work.unit[sel] = self.unit_index[rev.unit]
+        work.evaluated[sel] = True
+        work.revision[sel] = rev.revision
+
+        usable = _usable(x, flags)
+        if usable.any():
+            good = np.flatnonzero(usable)
+            q = combine_quality(x[good], flags[good], True)
+            self.latest[rev.name].add(work.order[sel][good], times[good], x[good], q)
 
     def _derive(self, work: "_Chunk", d: DerivedChannel) -> "_DerivedPart | None":
         trigger = d.expression.trigger
         trigger_index = self.name_index[trigger]
-        pos = np.flatnonzero(work.name == trigger_index)
-        if len(pos) == 0:
+        span = work.spans.get(self.cmap.ids_by_name.get(trigger, -1))
+        if span is None:
             return None
-        rec = work.rec
-        times = rec.time_us[pos]
+        lo, hi = span
+        sel = lo + np.flatnonzero(work.name[lo:hi] == trigger_index)
+        if len(sel) == 0:
+            return None
+        pos = work.order[sel]  # ascending: the channel's records in file order
+        times = work.time_us[sel]
         env = {}
         flags = np.zeros(len(pos), dtype=np.int64)
         worst = np.full(len(pos), Quality.GOOD, dtype=np.int8)
         for input_name in d.expression.names:
             if input_name == trigger:
-                values = work.value[pos].copy()
-                ok = _usable(values, work.flags[pos])
-                quality = np.where(ok, combine_quality(values, work.flags[pos], True), np.int8(Quality.MISSING))
+                values = work.value[sel]
+                trigger_flags = work.flags[sel]
+                ok = _usable(values, trigger_flags)
+                quality = np.where(ok, combine_quality(values, trigger_flags, True), np.int8(Quality.MISSING))
                 values[~ok] = np.nan
             else:
                 values, quality = self.latest[input_name].lookup(pos, times, round(d.max_age_s * US))
@@ -204,107 +219,136 @@ class Converter:
         flags |= limit_flags(result, d.range, d.expect)
         evaluated = np.full(len(pos), d.range is not None or d.expect is not None or d.qc.any_value_test or d.qc.max_gap is not None)
         evaluated |= worst >= Quality.SUSPECT
-        return _DerivedPart(d, pos, result, flags, evaluated)
+        return _DerivedPart(d, pos, result, flags, evaluated, times, work.line_at(pos))
 
-    def _assemble(self, work: "_Chunk", derived_parts) -> Rows:
+    # --- stateful tests: time order, gaps, rate, flat line and spike, per channel ------------
+    def _test_channel(self, work: "_Chunk", cid: int, lo: int, hi: int, row_of, extra: np.ndarray) -> None:
+        revs = self.cmap.channels[cid]
+        rev_of = work.revision[lo:hi]
+        if len(revs) == 1 and revs[0].valid_from_us == BEGINNING:
+            idx = slice(lo, hi)
+            max_gap = np.int64(_gap_us(revs[0].qc.max_gap))
+            groups = [((cid, revs[0].revision), revs[0].qc, idx)]
+        else:
+            mapped = np.flatnonzero(rev_of >= 0)
+            if len(mapped) == 0:
+                return
+            idx = lo + mapped
+            rev_of = rev_of[mapped]
+            max_gap = np.array([_gap_us(r.qc.max_gap) for r in revs], dtype=np.int64)[rev_of]
+            groups = [((cid, r.revision), r.qc, idx[rev_of == r.revision]) for r in revs]
+        clock = self.clocks.setdefault(cid, ClockState())
+        extra[idx] |= clock.test(work.time_us[idx], max_gap)
+        work.evaluated[idx] |= max_gap >= 0
+        for series_key, qc, sel in groups:
+            if isinstance(sel, slice):
+                if sel.stop == sel.start:
+                    continue
+            elif len(sel) == 0:
+                continue
+            if not qc.any_value_test:
+                continue
+            values = work.value[sel]
+            usable = np.flatnonzero(_usable(values, work.flags[sel] | extra[sel]))
+            state = self.series.setdefault(series_key, SeriesState(qc))
+            # expire by the series' first line in this chunk: a later line would drop a value
+            # whose successor is near, when the chunk is long (output must not depend on it)
+            first = sel.start if isinstance(sel, slice) else sel[0]
+            state.expire(int(work.line_at(work.order[first])))
+            if len(usable) == 0:
+                continue
+            at = usable + sel.start if isinstance(sel, slice) else sel[usable]
+            positions = work.order[at]
+            rows = self.rows_emitted + (positions if row_of is None else row_of[positions])
+            found, patches = state.test(work.time_us[at], values[usable], work.line_at(positions), rows)
+            extra[at] |= found
+            work.evaluated[at] = True
+            self.patches.extend(patches)
+
+    def _test_derived(self, work: "_Chunk", part: "_DerivedPart") -> None:
+        d = part.channel
+        key = ("derived", d.name)
+        max_gap = np.full(len(part.positions), _gap_us(d.qc.max_gap), dtype=np.int64)
+        clock = self.clocks.setdefault(key, ClockState())
+        part.flags |= clock.test(part.times, max_gap)
+        part.evaluated |= max_gap >= 0
+        if not d.qc.any_value_test:
+            return
+        usable = np.flatnonzero(_usable(part.values, part.flags))
+        state = self.series.setdefault(key, SeriesState(d.qc))
+        state.expire(int(part.lines[0]))
+        if len(usable) == 0:
+            return
+        rows = self.rows_emitted + part.rows[usable]
+        found, patches = state.test(part.times[usable], part.values[usable], part.lines[usable], rows)
+        part.flags[usable] |= found
+        part.evaluated[usable] = True
+        self.patches.extend(patches)
+
+    # --- rows in input order -----------------------------------------------------------------
+    def _assemble(self, work: "_Chunk", extra: np.ndarray, row_of, derived_parts) -> Rows:
         rec = work.rec
         n = len(rec)
-        base = Rows(
-            time_us=rec.time_us,
-            line=rec.line,
-            name=work.name,
-            channel_id=rec.channel,
-            code=rec.code,
-            gain=rec.gain,
-            volts=work.volts,
-            value=work.value,
-            unit=work.unit,
-            flags=work.flags,
-            evaluated=work.evaluated,
-            is_derived=np.zeros(n, dtype=bool),
+        order = work.order
+        flags = work.flags | extra
+        if row_of is None:
+            def lay(sorted_values):
+                out = np.empty_like(sorted_values)
+                out[order] = sorted_values
+                return out
+
+            return Rows(
+                time_us=rec.time_us,
+                line=rec.line,
+                name=lay(work.name),
+                channel_id=rec.channel,
+                code=rec.code,
+                gain=rec.gain,
+                volts=lay(work.volts),
+                value=lay(work.value),
+                unit=lay(work.unit),
+                flags=lay(flags),
+                evaluated=lay(work.evaluated),
+                is_derived=np.zeros(n, dtype=bool),
+            )
+        total = n + sum(len(p.positions) for p in derived_parts if p is not None)
+        target = row_of[order]
+        derived = np.ones(total, dtype=bool)
+        derived[row_of] = False
+        rows = Rows(
+            time_us=np.empty(total, dtype=np.int64),
+            line=np.empty(total, dtype=np.int64),
+            name=np.empty(total, dtype=np.int32),
+            channel_id=np.full(total, -1, dtype=np.int64),
+            code=np.full(total, -1, dtype=np.int64),
+            gain=np.full(total, -1, dtype=np.int64),
+            volts=np.full(total, np.nan),
+            value=np.empty(total),
+            unit=np.empty(total, dtype=np.int32),
+            flags=np.empty(total, dtype=np.int64),
+            evaluated=np.empty(total, dtype=bool),
+            is_derived=derived,
         )
-        parts = [base]
-        keys = [np.arange(n, dtype=np.int64) * 64]
-        for rank, part in enumerate(derived_parts, start=1):
+        for name in ("time_us", "line", "channel", "code", "gain"):
+            getattr(rows, "channel_id" if name == "channel" else name)[row_of] = getattr(rec, name)
+        rows.name[target] = work.name
+        rows.volts[target] = work.volts
+        rows.value[target] = work.value
+        rows.unit[target] = work.unit
+        rows.flags[target] = flags
+        rows.evaluated[target] = work.evaluated
+        for part in derived_parts:
             if part is None:
                 continue
-            m = len(part.positions)
-            neg = np.full(m, -1, dtype=np.int64)
-            parts.append(
-                Rows(
-                    time_us=rec.time_us[part.positions],
-                    line=rec.line[part.positions],
-                    name=np.full(m, self.name_index[part.channel.name], dtype=np.int32),
-                    channel_id=neg,
-                    code=neg,
-                    gain=neg,
-                    volts=np.full(m, np.nan),
-                    value=part.values,
-                    unit=np.full(m, self.unit_index[part.channel.unit], dtype=np.int32),
-                    flags=part.flags,
-                    evaluated=part.evaluated,
-                    is_derived=np.ones(m, dtype=bool),
-                )
-            )
-            keys.append(part.positions.astype(np.int64) * 64 + rank)
-        if len(parts) == 1:
-            rows = base
-            self._revision = work.revision_of
-            return rows
-        rows = Rows.concat(parts)
-        order = np.argsort(np.concatenate(keys), kind="stable")
-        revision = np.concatenate([work.revision_of] + [np.full(len(p), -1, dtype=np.int32) for p in parts[1:]])
-        self._revision = revision[order]
-        return rows.take(order)
-
-    def _stateful_tests(self, work: "_Chunk", rows: Rows) -> None:
-        """Time order, gaps, rate, flat line and spike, per channel, on the assembled rows."""
-        global_rows = self.rows_emitted + np.arange(len(rows), dtype=np.int64)
-        # derived rows are keyed by name, measured rows by channel id
-        key = np.where(
-            rows.is_derived,
-            -1 - rows.name.astype(np.int64),
-            np.where(rows.channel_id >= 0, rows.channel_id, np.iinfo(np.int64).max),
-        )
-        order = np.argsort(key, kind="stable")
-        keys, starts = np.unique(key[order], return_index=True)
-        ends = np.append(starts[1:], len(order))
-        for k, lo, hi in zip(keys.tolist(), starts.tolist(), ends.tolist()):
-            idx = order[lo:hi]
-            if k < 0:
-                d = self.derived_by_name[self.names[-1 - k]]
-                groups = [(("derived", d.name), d.qc, idx)]
-                clock_key = ("derived", d.name)
-                max_gap = np.full(len(idx), _gap_us(d.qc.max_gap), dtype=np.int64)
-            else:
-                if k not in self.cmap.channels:
-                    continue
-                revs = self.cmap.channels[k]
-                rev_of = self._revision[idx]
-                idx = idx[rev_of >= 0]
-                rev_of = rev_of[rev_of >= 0]
-                if len(idx) == 0:
-                    continue
-                groups = [((k, r.revision), r.qc, idx[rev_of == r.revision]) for r in revs]
-                clock_key = k
-                max_gap = np.array([_gap_us(r.qc.max_gap) for r in revs], dtype=np.int64)[rev_of]
-            clock = self.clocks.setdefault(clock_key, ClockState())
-            rows.flags[idx] |= clock.test(rows.time_us[idx], max_gap)
-            rows.evaluated[idx] |= max_gap >= 0
-            for series_key, qc, sel in groups:
-                if len(sel) == 0 or not qc.any_value_test:
-                    continue
-                usable = sel[_usable(rows.value[sel], rows.flags[sel])]
-                state = self.series.setdefault(series_key, SeriesState(qc))
-                # expire by the series' first line in this chunk: a later line would drop a value
-                # whose successor is near, when the chunk is long (output must not depend on it)
-                state.expire(int(rows.line[sel[0]]) if len(sel) else 0)
-                if len(usable) == 0:
-                    continue
-                found, patches = state.test(rows.time_us[usable], rows.value[usable], rows.line[usable], global_rows[usable])
-                rows.flags[usable] |= found
-                rows.evaluated[usable] = True
-                self.patches.extend(patches)
+            at = part.rows
+            rows.time_us[at] = part.times
+            rows.line[at] = part.lines
+            rows.name[at] = self.name_index[part.channel.name]
+            rows.value[at] = part.values
+            rows.unit[at] = self.unit_index[part.channel.unit]
+            rows.flags[at] = part.flags
+            rows.evaluated[at] = part.evaluated
+        return rows
 
     def held_from(self) -> int | None:
         """First global row that must wait (a spike decision pending), or None."""
@@ -316,27 +360,80 @@ class Converter:
             s.expire(line)
 
 
-@dataclass
 class _Chunk:
-    rec: Records
-    value: np.ndarray
-    volts: np.ndarray
-    flags: np.ndarray
-    name: np.ndarray
-    unit: np.ndarray
-    evaluated: np.ndarray
+    """One chunk laid out channel by channel (stable, so each channel stays in file order).
 
-    def __post_init__(self):
-        self.revision_of = np.full(len(self.rec), -1, dtype=np.int32)
+    ``order[i]`` is the file position of grouped record i; ``spans`` maps each channel id
+    met to its (start, stop) in the grouped arrays. The per-record results (``value``,
+    ``volts``, ``flags``, ``name``, ``unit``, ``evaluated``, ``revision``) are grouped too.
+    """
+
+    def __init__(self, rec: Records, order: np.ndarray, spans: dict[int, tuple[int, int]]):
+        n = len(rec)
+        self.rec = rec
+        self.order = order
+        self.spans = spans
+        self.time_us = rec.time_us[order]
+        self.code = rec.code[order]
+        self.gain = rec.gain[order]
+        self.value = np.full(n, np.nan)
+        self.volts = np.full(n, np.nan)
+        self.flags = rec.time_flags[order]
+        self.name = np.full(n, -1, dtype=np.int32)
+        self.unit = np.full(n, -1, dtype=np.int32)
+        self.evaluated = np.zeros(n, dtype=bool)
+        self.revision = np.full(n, -1, dtype=np.int32)
+
+    @classmethod
+    def grouped(cls, rec: Records) -> "_Chunk":
+        channel = rec.channel
+        n = len(channel)
+        if n and 0 <= int(channel.min()) and int(channel.max()) < 1 << 16:
+            key = channel.astype(np.uint16)
+            order = np.argsort(key, kind="stable")  # a radix sort for 16-bit keys
+            counts = np.bincount(key)
+            ids = np.flatnonzero(counts)
+            stops = np.cumsum(counts)[ids]
+            starts = stops - counts[ids]
+        else:
+            order = np.argsort(channel, kind="stable")
+            ids, starts = np.unique(channel[order], return_index=True)
+            stops = np.append(starts[1:], n)
+        spans = dict(zip(ids.tolist(), zip(starts.tolist(), stops.tolist())))
+        return cls(rec, order, spans)
+
+    def line_at(self, positions) -> np.ndarray:
+        return self.rec.line[positions]
+
+
+def _row_positions(n: int, derived_parts) -> np.ndarray | None:
+    """Output row of each record when derived rows follow their triggers (None: no derived
+    rows, row = record); also sets each derived part's ``rows``."""
+    parts = [p for p in derived_parts if p is not None]
+    if not parts:
+        return None
+    count = np.zeros(n, dtype=np.int64)
+    for part in parts:
+        count[part.positions] += 1
+    row_of = np.arange(n, dtype=np.int64) + np.cumsum(count) - count
+    taken = np.zeros(n, dtype=np.int64)
+    for part in parts:  # several derived rows after one record: in map order
+        q = part.positions
+        part.rows = row_of[q] + 1 + taken[q]
+        taken[q] += 1
+    return row_of
 
 
 @dataclass
 class _DerivedPart:
     channel: DerivedChannel
-    positions: np.ndarray
+    positions: np.ndarray  # file positions of the trigger records
     values: np.ndarray
     flags: np.ndarray
     evaluated: np.ndarray
+    times: np.ndarray
+    lines: np.ndarray
+    rows: np.ndarray | None = None  # rows in the chunk's output
 
 
 def _gap_us(max_gap_s: float | None) -> int:

@@ -113,6 +113,7 @@ class LogReader:
         self.data_lines = 0
         self.header_line: int | None = None
         self._first_data_pending = True
+        self._aware_first = False  # whether the last fast block had times with an offset
         try:
             self._file = open(self.path, "rb")
         except OSError as exc:
@@ -172,7 +173,7 @@ class LogReader:
     # --- block parsing ---------------------------------------------------------------------
     def _parse_block(self, block: bytes, last: bool) -> Records:
         start_line = self.lines_seen + 1
-        n_lines = block.count(b"\n") + (0 if block.endswith(b"\n") else 1)
+        n_lines = _count_newlines(block) + (0 if block.endswith(b"\n") else 1)
         self.lines_seen += n_lines
         if self._first_data_pending:
             # Comments, blanks and the header come first: read them one by one, then hand
@@ -185,22 +186,17 @@ class LogReader:
             self.lines_seen = start_line - 1 + lines_in_head
             second = self._parse_block(rest, last)
             return concatenate([first, second])
+        # Blank lines need no search here: Arrow skips them, so a block holding one parses
+        # to fewer rows than it has lines and takes the careful path below.
         if (
             b"#" in block
             or b"\x00" in block
-            or b"\n\n" in block
-            or b"\n\r\n" in block
             or block.startswith((b"\n", b"\r\n"))
             or not block.endswith(b"\n")
         ):
             return self._slow_block(block, start_line, last)
         try:
-            table = pacsv.read_csv(
-                io.BytesIO(block),
-                read_options=pacsv.ReadOptions(column_names=self.columns, use_threads=True, block_size=1 << 22),
-                parse_options=pacsv.ParseOptions(delimiter=self.delimiter, newlines_in_values=False),
-                convert_options=pacsv.ConvertOptions(column_types=self._arrow_types(), strings_can_be_null=False, quoted_strings_can_be_null=False),
-            )
+            table = self._read_typed(block)
             if table.num_rows != n_lines:
                 raise ValueError("row count")
             if any(table.column(c).null_count for c in table.column_names):
@@ -230,9 +226,36 @@ class LogReader:
             pos = end + 1
         return block, b""
 
-    def _arrow_types(self) -> dict[str, pa.DataType]:
+    def _read_typed(self, block: bytes) -> pa.Table:
+        """Arrow's multi-threaded CSV parser, times parsed as ISO 8601 in the same pass.
+
+        A block of naive times parses as ``timestamp[us]``, one of times with an offset as
+        ``timestamp[us, UTC]`` (Arrow accepts either kind only into its own type, exactly as
+        a cast from text does); the kind the last block had is tried first.
+        """
+        kinds = [self._aware_first, not self._aware_first] if self.spec.time == "iso" else [False]
+        for attempt, aware in enumerate(kinds):
+            try:
+                table = pacsv.read_csv(
+                    io.BytesIO(block),
+                    read_options=pacsv.ReadOptions(column_names=self.columns, use_threads=True, block_size=1 << 20),
+                    parse_options=pacsv.ParseOptions(delimiter=self.delimiter, newlines_in_values=False),
+                    convert_options=pacsv.ConvertOptions(column_types=self._arrow_types(aware), strings_can_be_null=False, quoted_strings_can_be_null=False),
+                )
+            except pa.ArrowInvalid as exc:
+                if attempt + 1 == len(kinds) or "zone" not in str(exc):
+                    raise
+                continue
+            self._aware_first = aware
+            return table
+        raise AssertionError("unreachable")
+
+    def _arrow_types(self, aware: bool = False) -> dict[str, pa.DataType]:
         types = {"channel": pa.int64(), "code": pa.int64(), "gain": pa.int64()}
-        types["time"] = pa.string() if self.spec.time == "iso" else pa.float64()
+        if self.spec.time == "iso":
+            types["time"] = pa.timestamp("us", "UTC") if aware else pa.timestamp("us")
+        else:
+            types["time"] = pa.float64()
         return {c: types[c] for c in self.columns}
 
     def _arrow_times(self, column: pa.ChunkedArray) -> tuple[np.ndarray, np.ndarray]:
@@ -244,12 +267,9 @@ class LogReader:
             if not np.all(np.isfinite(us)) or np.any(np.abs(us) > 9e18):
                 raise ValueError("time out of range")
             return us.astype(np.int64), np.zeros(len(us), dtype=bool)
-        try:
-            naive = pc.cast(column, pa.timestamp("us"))
-            return naive.cast(pa.int64()).to_numpy(), np.ones(len(column), dtype=bool)
-        except pa.ArrowInvalid:
-            aware = pc.cast(column, pa.timestamp("us", "UTC"))
-            return aware.cast(pa.int64()).to_numpy(), np.zeros(len(column), dtype=bool)
+        if column.type.tz is None:
+            return column.cast(pa.int64()).to_numpy(), np.ones(len(column), dtype=bool)
+        return column.cast(pa.int64()).to_numpy(), np.zeros(len(column), dtype=bool)
 
     def _finish(self, lines, time_us, naive_mask, table_or_columns, rejects) -> Records:
         n = len(lines)
@@ -384,6 +404,11 @@ def _unquote(field: str) -> str:
     if len(field) >= 2 and field[0] == field[-1] == '"':
         field = field[1:-1].replace('""', '"')
     return field
+
+
+def _count_newlines(block: bytes) -> int:
+    """``block.count(b"\\n")``, a few times faster on megabyte blocks."""
+    return int(np.count_nonzero(np.frombuffer(block, dtype=np.uint8) == 0x0A))
 
 
 def concatenate(parts: list[Records]) -> Records:

@@ -77,9 +77,7 @@ class SeriesState:
     last_time_us: int | None = None
     last_value: float | None = None
     pending: Pending | None = None
-    # flat-line window: monotone times and values reaching back flat_seconds (plus anchor)
-    window_times: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
-    window_values: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    flat: "FlatWindow" = field(default_factory=lambda: FlatWindow())
 
     def test(self, times, values, lines, rows) -> tuple[np.ndarray, list[tuple[int, int]]]:
         """Flags for this chunk's usable values, plus spike flags for earlier held rows.
@@ -112,21 +110,7 @@ class SeriesState:
         return np.where(bad, np.int64(Flag.RATE_OF_CHANGE), np.int64(0))
 
     def _flat(self, times, values, tolerance, seconds) -> np.ndarray:
-        span = round(seconds * US)
-        previous_max = self.window_times[-1] if len(self.window_times) else np.iinfo(np.int64).min
-        mono = np.maximum.accumulate(np.concatenate(([previous_max], times)))[1:]
-        all_t = np.concatenate([self.window_times, mono])
-        all_x = np.concatenate([self.window_values, values])
-        offset = len(self.window_times)
-        here = np.arange(offset, len(all_t))
-        anchor = np.searchsorted(all_t, all_t[here] - span, side="right") - 1
-        reaches = anchor >= 0
-        lo, hi = range_min_max(all_x, np.maximum(anchor, 0), here)
-        x = all_x[here]
-        flat = reaches & (hi - x <= tolerance) & (x - lo <= tolerance)
-        keep = max(int(np.searchsorted(all_t, all_t[-1] - span, side="right")) - 1, 0)
-        self.window_times = all_t[keep:].copy()
-        self.window_values = all_x[keep:].copy()
+        flat = self.flat.test(times, values, tolerance, round(seconds * US))
         return np.where(flat, np.int64(Flag.FLAT_LINE), np.int64(0))
 
     def _spike(self, values, lines, rows, threshold, flags) -> list[tuple[int, int]]:
@@ -159,23 +143,98 @@ class SeriesState:
             self.pending = None
 
 
+@dataclass
+class FlatWindow:
+    """What the flat-line test needs of a channel's past values, in constant memory.
+
+    The window of a record reaches from its *anchor* (the last earlier value whose time is
+    at or before the record's time minus ``seconds``; times are taken as a running maximum
+    so that a clock step back cannot shrink the window) to the record itself. Of the past
+    values, a later record only ever needs the minimum and maximum from its anchor to the
+    end of the past, so the state keeps those suffix extremes as steps: ``starts[k]`` is
+    the time of the first value of step k, ``high[k]``/``low[k]`` the maximum/minimum from
+    there to the last value. Steps whose spread exceeds twice the tolerance are dropped
+    (no window that contains them can be flat), as are steps no later anchor can reach,
+    so a noisy or moving channel keeps only a few steps however long ``seconds`` is.
+    """
+
+    last_time_us: int | None = None  # running maximum of the times seen
+    starts: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    high: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    low: np.ndarray = field(default_factory=lambda: np.zeros(0))
+
+    def test(self, times: np.ndarray, values: np.ndarray, tolerance: float, span_us: int) -> np.ndarray:
+        """True where a value is flat: its window reaches back ``span_us`` and every value
+        in it lies within ``tolerance`` of the value (values in file order)."""
+        n = len(values)
+        if n == 0:
+            return np.zeros(0, dtype=bool)
+        floor = self.last_time_us if self.last_time_us is not None else np.iinfo(np.int64).min
+        mono = np.maximum.accumulate(np.concatenate(([floor], times)))[1:]
+        target = mono - span_us
+        anchor = np.searchsorted(mono, target, side="right") - 1
+        inside = anchor >= 0  # the anchor is a value of this call
+        hi = np.empty(n)
+        lo = np.empty(n)
+        if inside.any():
+            here = np.flatnonzero(inside)
+            lo[here], hi[here] = range_min_max(values, anchor[here], here)
+        reaches = inside.copy()
+        if not inside.all():
+            past = np.flatnonzero(~inside)
+            step = np.searchsorted(self.starts, target[past], side="right") - 1
+            found = step >= 0
+            past, step = past[found], step[found]
+            reaches[past] = True
+            prefix_hi = np.maximum.accumulate(values)
+            prefix_lo = np.minimum.accumulate(values)
+            hi[past] = np.maximum(self.high[step], prefix_hi[past])
+            lo[past] = np.minimum(self.low[step], prefix_lo[past])
+        with np.errstate(invalid="ignore"):
+            flat = reaches & (hi - values <= tolerance) & (values - lo <= tolerance)
+        self._keep(mono, values, tolerance, span_us)
+        return flat
+
+    def _keep(self, mono: np.ndarray, values: np.ndarray, tolerance: float, span_us: int) -> None:
+        """Fold this call's values into the steps and drop the steps no later record needs."""
+        suffix_hi = np.maximum.accumulate(values[::-1])[::-1]
+        suffix_lo = np.minimum.accumulate(values[::-1])[::-1]
+        starts = np.concatenate([self.starts, mono])
+        high = np.concatenate([np.maximum(self.high, suffix_hi[0]), suffix_hi])
+        low = np.concatenate([np.minimum(self.low, suffix_lo[0]), suffix_lo])
+        self.last_time_us = int(mono[-1])
+        # the anchor of any later record is at or after the anchor of the last one
+        first = max(int(np.searchsorted(starts, mono[-1] - span_us, side="right")) - 1, 0)
+        # a window holding a step with more than twice the tolerance of spread is never flat
+        # (the small margin covers rounding in the per-record comparison)
+        with np.errstate(invalid="ignore"):
+            spread = high[first:] - low[first:]
+            first += int(np.count_nonzero(spread > 2.0 * tolerance * (1.0 + 1e-9) + 1e-300))
+        starts, high, low = starts[first:], high[first:], low[first:]
+        if len(starts) > 1:
+            new = np.concatenate(([True], (high[1:] != high[:-1]) | (low[1:] != low[:-1])))
+            starts, high, low = starts[new], high[new], low[new]
+        self.starts, self.high, self.low = starts.copy(), high.copy(), low.copy()
+
+
 def range_min_max(x: np.ndarray, start: np.ndarray, stop: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Min and max of ``x[start[i]:stop[i]+1]`` for every i, with a sparse table.
 
-    O(n log n) numpy work, no Python loop per element.
+    O(n log w) numpy work for windows up to w values long, no Python loop per element.
     """
     n = len(x)
-    if n == 0:
-        return np.zeros(0), np.zeros(0)
+    if n == 0 or len(start) == 0:
+        return np.zeros(len(start)), np.zeros(len(start))
+    length = stop - start + 1
+    levels = int(np.log2(max(int(length.max()), 1)))
     mins = [x]
     maxs = [x]
     width = 1
-    while width * 2 <= n:
+    for _ in range(levels):
         prev_min, prev_max = mins[-1], maxs[-1]
         mins.append(np.minimum(prev_min[:-width], prev_min[width:]))
         maxs.append(np.maximum(prev_max[:-width], prev_max[width:]))
         width *= 2
-    length = stop - start + 1
     level = np.floor(np.log2(np.maximum(length, 1))).astype(np.int64)
     lo = np.empty(len(start))
     hi = np.empty(len(start))

@@ -39,6 +39,9 @@ class LocalClock:
         flags = np.zeros(wall_us.shape, dtype=np.int64)
         if self.trivial or wall_us.size == 0:
             return wall_us.copy(), flags
+        plain = self._unambiguous(wall_us)
+        if plain is not None:  # the common case: no wall time near a transition
+            return plain, flags
         naive = pa.array(wall_us, type=pa.timestamp("us"))
         early = pc.assume_timezone(naive, timezone=self.zone, ambiguous="earliest", nonexistent="earliest")
         late = pc.assume_timezone(naive, timezone=self.zone, ambiguous="latest", nonexistent="latest")
@@ -62,6 +65,28 @@ class LocalClock:
         if repeated.size:
             self._resolve_fold(wall_us, early_us, late_us, repeated, utc)
         return utc, flags
+
+    def _unambiguous(self, wall_us: np.ndarray) -> np.ndarray | None:
+        """UTC of wall times when none is ambiguous or nonexistent; else None.
+
+        The tz database counts offsets and transition instants in whole seconds, so every
+        wall time of one wall-clock second has the same offset: one lookup per run of
+        records in the same second serves the whole run (a logger writes many records a
+        second, in time order).
+        """
+        seconds = wall_us // US
+        change = np.empty(len(seconds), dtype=bool)
+        change[0] = True
+        np.not_equal(seconds[1:], seconds[:-1], out=change[1:])
+        starts = np.flatnonzero(change)
+        firsts = seconds[starts] * US
+        try:
+            utc = pc.assume_timezone(pa.array(firsts, type=pa.timestamp("us")), timezone=self.zone,
+                                     ambiguous="raise", nonexistent="raise")
+        except pa.ArrowInvalid:
+            return None
+        offset = firsts - utc.cast(pa.int64()).to_numpy()
+        return wall_us - np.repeat(offset, np.diff(np.append(starts, len(seconds))))
 
     def _resolve_fold(self, wall_us, early_us, late_us, positions, utc) -> None:
         # each fall-back transition is identified by the local day it happens on
