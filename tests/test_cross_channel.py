@@ -119,13 +119,22 @@ def test_input_from_an_earlier_line_with_a_later_time_is_missing(power_map, writ
     assert np.isnan(power_rows(out)["value"].iloc[0])
 
 
-def test_input_is_the_last_earlier_line_even_if_an_older_one_would_fit(power_map, write_log, convert):
-    # Implementation's reading of "latest value from an earlier line": the input's last
-    # earlier record decides; when its time is after the record's, the input is missing,
-    # even though an older record (t = 0, 10 A) would be at or before the record's time.
+def test_input_is_the_latest_earlier_line_whose_time_fits(power_map, write_log, convert):
+    # Contract §4, read as written: the candidates are earlier lines "whose time is at or before
+    # the record's time and no older than max_age"; the last of them is taken. The input's last
+    # earlier record (t = 20 s) is after the record's time (t = 10 s), so the older one
+    # (t = 0, 10 A) is used.
     lines = [(at(0), 2, 10, 0), (at(20), 2, 12, 0), (at(10), 1, 200, 0)]
     _, out = convert(write_log(lines), power_map())
-    assert np.isnan(power_rows(out)["value"].iloc[0])
+    assert power_rows(out)["value"].iloc[0] == pytest.approx(2.0)
+
+
+def test_no_earlier_line_fits_gives_missing(power_map, write_log, convert):
+    # both earlier amps records are after the record's time: input_missing
+    lines = [(at(15), 2, 10, 0), (at(20), 2, 12, 0), (at(10), 1, 200, 0)]
+    _, out = convert(write_log(lines), power_map())
+    row = power_rows(out).iloc[0]
+    assert np.isnan(row["value"]) and row["quality"] == 9
 
 
 def test_bad_input_is_skipped_for_the_latest_good_one(power_map, write_log, convert):

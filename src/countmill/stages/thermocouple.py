@@ -47,7 +47,7 @@ class ThermocoupleParams(StageParams):
 
     type: ThermocoupleType
     cold_junction: float | str
-    max_age: float = Field(60.0, gt=0, allow_inf_nan=False)
+    max_age: float = Field(60.0, gt=0, le=3600, allow_inf_nan=False)  # [s]; history holds 2 h
 
     @field_validator("type", mode="before")
     @classmethod
