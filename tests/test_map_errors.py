@@ -241,3 +241,44 @@ def test_map_error_in_convert_writes_nothing(make_map, write_log, run_cli, tmp_p
         result = run_cli("convert", raw, "--map", path, "-o", tmp_path / out)
         assert result.exit_code == 2
     assert sorted(p.name for p in tmp_path.iterdir()) == ["map.toml", "raw.csv"]
+
+
+# --- expressions that are allowed --------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    "expression, unit",
+    [
+        ("max(pump_volts, 0)", "V"),  # a clamp at zero: the number takes the volts' dimension
+        ("min(pump_volts / pump_amps, 2)", "ohm"),
+        ("pump_volts * 2**(1+1)", "V"),  # a constant exponent may be an expression of numbers
+        ("pump_volts * 2**3**2", "V"),
+        ("2 ** (pump_volts / pump_volts)", "1"),  # a variable power of a dimensionless base
+    ],
+)
+def test_allowed_expressions_load(tmp_path, expression, unit):
+    from countmill.chanmap import parse_map
+
+    text = f"""
+[map]
+name = "x"
+[adc]
+bits = 12
+span = [0.0, 4.096]
+[[channel]]
+id = 1
+name = "pump_volts"
+unit = "V"
+chain = [{{ stage = "linear", slope = 1.0, intercept = 0.0 }}]
+[[channel]]
+id = 2
+name = "pump_amps"
+unit = "A"
+chain = [{{ stage = "linear", slope = 1.0, intercept = 0.0 }}]
+[[derived]]
+name = "d"
+unit = "{unit}"
+expression = "{expression}"
+"""
+    cmap = parse_map(text.encode(), "x.toml")
+    assert cmap.derived[0].expression.text == expression

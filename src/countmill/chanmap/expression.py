@@ -82,6 +82,13 @@ class Expression:
             raise ExpressionError(f"units do not combine in {self.text!r}: {exc}") from None
 
 
+_DIMENSIONLESS = ureg.dimensionless.dimensionality
+
+
+def _dimension(value):
+    return getattr(value, "dimensionality", _DIMENSIONLESS)
+
+
 def parse_expression(text: str) -> Expression:
     if len(text) > MAX_LENGTH:
         raise ExpressionError(f"expression longer than {MAX_LENGTH} characters")
@@ -97,6 +104,14 @@ def parse_expression(text: str) -> Expression:
     if not names:
         raise ExpressionError(f"{text!r} names no channel")
     return Expression(text=text, names=tuple(names), evaluate=evaluate, tree=tree)
+
+
+def _constant(node: ast.AST, text: str) -> float | None:
+    """The value of a sub-expression made of numbers only, else None."""
+    if any(isinstance(n, ast.Name) for n in ast.walk(node)):
+        return None
+    value = _compile(node, text, [])({})
+    return float(value)
 
 
 def _snippet(node: ast.AST, text: str) -> str:
@@ -117,12 +132,8 @@ def _compile(node: ast.AST, text: str, names: list[str]) -> Callable[[Mapping[st
         return lambda env: env[name]
     if isinstance(node, ast.BinOp) and type(node.op) in _BINARY:
         if isinstance(node.op, ast.Pow):
-            exponent = node.right
-            if isinstance(exponent, ast.UnaryOp) and isinstance(exponent.op, (ast.USub, ast.UAdd)):
-                exponent = exponent.operand
-            if not (isinstance(exponent, ast.Constant) and isinstance(exponent.value, (int, float))):
-                raise ExpressionError(f"the exponent in '{_snippet(node, text)}' must be a number")
-            if abs(float(exponent.value)) > MAX_EXPONENT:
+            exponent = _constant(node.right, text)
+            if exponent is not None and abs(exponent) > MAX_EXPONENT:
                 raise ExpressionError(
                     f"the exponent in '{_snippet(node, text)}' is larger than {MAX_EXPONENT:g} in size"
                 )
@@ -171,15 +182,20 @@ def _unit_eval(node: ast.AST, values, text: str):
     if isinstance(node, ast.BinOp):
         left = _unit_eval(node.left, values, text)
         if isinstance(node.op, ast.Pow):
-            exponent = node.right
-            sign = -1.0 if isinstance(exponent, ast.UnaryOp) and isinstance(exponent.op, ast.USub) else 1.0
-            while isinstance(exponent, ast.UnaryOp):
-                exponent = exponent.operand
-            return left ** (sign * float(exponent.value))
+            exponent = _constant(node.right, text)
+            if exponent is None:
+                # a variable exponent is fine on a dimensionless base with a dimensionless power
+                power = _unit_eval(node.right, values, text)
+                for part, what in ((left, "base"), (power, "exponent")):
+                    if _dimension(part) != _DIMENSIONLESS:
+                        raise ExpressionError(
+                            f"'{_snippet(node, text)}': a {what} with units needs a number as exponent"
+                        )
+                return 1.0
+            return left**exponent
         right = _unit_eval(node.right, values, text)
         if isinstance(node.op, (ast.Add, ast.Sub)):
-            l_dim = getattr(left, "dimensionality", ureg.dimensionless.dimensionality)
-            r_dim = getattr(right, "dimensionality", ureg.dimensionless.dimensionality)
+            l_dim, r_dim = _dimension(left), _dimension(right)
             if l_dim != r_dim:
                 raise ExpressionError(
                     f"'{_snippet(node, text)}' adds or subtracts quantities of different dimensions ({l_dim} and {r_dim})"
@@ -190,16 +206,20 @@ def _unit_eval(node: ast.AST, values, text: str):
         name = node.func.id
         args = [_unit_eval(a, values, text) for a in node.args]
         if name in ("exp", "log"):
-            dim = getattr(args[0], "dimensionality", ureg.dimensionless.dimensionality)
-            if dim != ureg.dimensionless.dimensionality:
-                raise ExpressionError(f"'{_snippet(node, text)}': {name} needs a dimensionless argument, got {dim}")
+            if _dimension(args[0]) != _DIMENSIONLESS:
+                raise ExpressionError(
+                    f"'{_snippet(node, text)}': {name} needs a dimensionless argument, got {_dimension(args[0])}"
+                )
             return 1.0
         if name == "sqrt":
             return args[0] ** 0.5
         if name == "abs":
             return abs(args[0])
-        dims = {str(getattr(a, "dimensionality", "")) for a in args}
+        # min/max: quantities must share a dimension; a plain number (a clamp such as
+        # max(x, 0)) takes the dimension of the others
+        quantities = [a for a, n in zip(args, node.args) if _constant(n, text) is None]
+        dims = {str(_dimension(a)) for a in quantities}
         if len(dims) > 1:
             raise ExpressionError(f"'{_snippet(node, text)}': {name} of quantities of different dimensions")
-        return args[0]
+        return quantities[0] if quantities else 1.0
     raise ExpressionError(f"'{_snippet(node, text)}' is not allowed in an expression")
