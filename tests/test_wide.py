@@ -117,7 +117,7 @@ def reference(tidy: pd.DataFrame, every: str, settle_s: float | None = None):
         rows = rows[~late]
     keys = ["bin", "channel"]
     count = rows.groupby(keys).size()
-    mean = rows[rows["quality"].isin([1, 2, 3])].groupby(keys)["value"].mean()
+    mean = rows[rows["quality"].isin([1, 3])].groupby(keys)["value"].mean()  # contract §5: good and suspect
     per_level = rows.groupby(keys)["quality"].value_counts().unstack(fill_value=0).reindex(columns=LEVELS, fill_value=0)
     top = per_level.max(axis=1)
     # the most frequent level, a tie to the worse one: the last level (in 1 2 3 4 9 order) reaching the top count

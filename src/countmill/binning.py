@@ -5,7 +5,7 @@ from the Unix epoch (1970-01-01T00:00:00Z), so bins line up with UTC clock time 
 width that divides a day.
 
 Per bin and channel the state keeps the running sum and number of the samples that enter
-the mean (quality good, not evaluated or suspect), and the number of samples at each
+the mean (quality good or suspect, as contract §5 says), and the number of samples at each
 quality level. Sums are added in input order with ``np.add.at`` onto the running total,
 so a bin comes out bit for bit the same however the input was cut into chunks.
 
@@ -30,7 +30,7 @@ LEVELS = np.array([int(q) for q in Quality], dtype=np.int8)  # 1 2 3 4 9
 _SLOT = np.zeros(10, dtype=np.intp)
 _SLOT[LEVELS] = np.arange(len(LEVELS))
 #: levels whose value enters the bin's mean
-MEAN_LEVELS = (int(Quality.GOOD), int(Quality.NOT_EVALUATED), int(Quality.SUSPECT))
+MEAN_LEVELS = (int(Quality.GOOD), int(Quality.SUSPECT))  # contract §5: good and suspect
 
 _NEVER = np.iinfo(np.int64).min // 4
 

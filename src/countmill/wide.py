@@ -7,7 +7,8 @@ Columns: ``time`` (the bin's start, UTC; bins are aligned to the Unix epoch), th
 measured and derived channel, in the order the map lists them:
 
 ``<channel>``
-    mean of the bin's samples whose quality is good (1), not evaluated (2) or suspect (3),
+    mean of the bin's samples whose quality is good (1) or suspect (3) (contract §5; a
+    derived channel without any test, quality 2, therefore has no mean: give it a range),
     in the channel's unit (the latest revision's, earlier revisions converted to it);
     NaN (an empty CSV field) when there is none.
 ``<channel>_quality``
@@ -59,7 +60,7 @@ _UNIT_WORDS = {
 DEFAULT_SETTLE = "1h"
 #: Parquet key-value metadata key with the late samples per channel, known only at the end
 LATE_KEY = "countmill.late_samples"
-VALUE_RULE = "mean of the samples whose quality is 1, 2 or 3"
+VALUE_RULE = "mean of the samples whose quality is 1 or 3 (good or suspect)"
 QUALITY_RULE = "the most frequent level among the bin's samples; a tie goes to the worse level (1<2<3<4<9); 9 for no sample"
 
 
