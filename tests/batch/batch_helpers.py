@@ -115,6 +115,6 @@ def partials(out: Path) -> list[str]:
 
 
 def age(path: Path, seconds: float) -> None:
-    """Set mtime back (ctime cannot be set back: tests that need settled files wait instead)."""
+    """Set mtime back, as an old file would have it."""
     st = path.stat()
     os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns - int(seconds * 1e9)))

@@ -11,7 +11,7 @@ from pathlib import Path
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from batch_helpers import invoke, partials, run_cli, summary, tables, write_log, write_map
+from batch_helpers import age, invoke, partials, run_cli, summary, tables, write_log, write_map
 
 
 def batch(inbox: Path, out: Path, *extra: str, map_path: Path | None = None):
@@ -116,6 +116,22 @@ def test_a_file_still_changing_is_left_for_the_next_run(tmp_path, tiny_map):
     s = summary(out)
     assert [c["source"] for c in s["converted"]] == ["tank-2026-11-04.csv"]
     assert s["counts"]["left"] == 0 and s["counts"]["skipped"] == 1
+
+
+def test_settle_follows_the_modification_time(tmp_path, tiny_map):
+    # issue 6: a file whose mtime changed in the last --settle seconds waits; an older one,
+    # even if it just arrived, does not (default settle 120 s)
+    inbox = tmp_path / "inbox"
+    inbox.mkdir()
+    write_log(inbox / "tank-2026-11-03.csv", 100, day=3)
+    write_log(inbox / "tank-2026-11-04.csv", 100, day=4)
+    age(inbox / "tank-2026-11-03.csv", 3600)
+    out = tmp_path / "out"
+    r = invoke("batch", str(inbox), "--map", str(tiny_map), "--out", str(out))
+    assert r.returncode == 0, r.stderr
+    s = summary(out)
+    assert [c["source"] for c in s["converted"]] == ["tank-2026-11-03.csv"]
+    assert [item["source"] for item in s["left"]] == ["tank-2026-11-04.csv"]
 
 
 def test_exit_3_when_lines_are_rejected_and_the_rejects_file_sits_next_to_the_output(tmp_path, tiny_map):

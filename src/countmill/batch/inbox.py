@@ -155,7 +155,8 @@ def _classify_one(f: RawFile, manifest: Manifest, out_dir: Path, plan: Plan, *, 
     # unchanged since it was hashed and already converted: done, settling or not
     sha = None if rehash else manifest.cached_hash(*_stat_key(f))
     if not is_done(sha):
-        age = now - max(f.st.st_mtime, f.st.st_ctime)
+        # the last modification time: what a writer moves (and what `touch -d` sets back)
+        age = now - f.st.st_mtime
         if settle > 0 and age < settle:
             if age >= 0:
                 why = f"changed {age:.0f} s ago (settle {settle:g} s)"
