@@ -376,7 +376,7 @@ class _Loader:
             max_age_s=spec.max_age,
             range=spec.range,
             expect=spec.expect,
-            qc=QcSettings.merged(self.spec.qc, spec.qc) if spec.qc else QcSettings(max_gap=None),
+            qc=QcSettings.merged(self.spec.qc, spec.qc),  # map-level [qc] defaults apply here too (contract §6)
         )
 
     def dependency_order(self, revisions, names_to_id) -> list[int]:
