@@ -202,3 +202,16 @@ def test_cold_junction_from_another_channel(make_map, write_log, convert):
     assert np.isnan(kettle["value"].iloc[0]) and out.names(kettle.index[0]) == ["input_missing"]
     assert kettle["value"].iloc[1] == pytest.approx(25.0, abs=1e-6)
     assert np.isnan(kettle["value"].iloc[2]) and kettle["quality"].iloc[2] == 9  # 69 s old
+
+
+def test_derived_channel_takes_the_map_level_qc_defaults(make_map, write_log, convert):
+    # Contract §6: tests come "per channel, from the map (range, expect, qc) and map-level [qc]
+    # defaults" -- a derived channel is a channel too. max_gap = 5 s: the derived row after a
+    # 20 s pause is gap_before (suspect); with a test applied, quality is 1, not 2.
+    cmap = make_map([VOLTS, AMPS], [POWER], adc=EXACT_ADC, gains={0: 1}, qc={"max_gap": 5.0})
+    lines = [(at(0), 2, 10, 0), (at(1), 1, 200, 0), (at(2), 2, 10, 0), (at(3), 1, 200, 0),
+             (at(22), 2, 10, 0), (at(23), 1, 200, 0)]
+    _, out = convert(write_log(lines), cmap)
+    rows = power_rows(out)
+    assert rows["quality"].tolist() == [1, 1, 3]
+    assert "gap_before" in out.names(rows.index[2])
