@@ -156,24 +156,27 @@ def test_flat_line_needs_records_reaching_back_flat_seconds(make_map, write_log,
     assert out.df["quality"].tolist() == [1, 1, 1, 3, 3, 3, 3]
 
 
-def test_flat_line_window_includes_the_oldest_record_reaching_back(make_map, write_log, convert):
-    # seconds = 25: at t = 30 the window reaches back to the record at t = 0 (the latest one
-    # at least 25 s old), whose value 20 is not within 0.5 of 10 -> not flagged, although the
-    # records of the last 25 s are all 10. At t = 40 the window starts at t = 10 -> flagged.
+def test_flat_line_window_is_the_last_seconds(make_map, write_log, convert):
+    # Contract §6, seconds = 25: at t = 20 nothing is 25 s old yet. At t = 30 the channel
+    # reaches back to t = 0 and the window [5, 30] holds 10, 10, 10: flagged, although the
+    # record at t = 0 (value 20, outside the window) is not within 0.5. At t = 40 too.
     cmap = make_map([level(qc={"flat": {"tolerance": 0.5, "seconds": 25}})], adc=EXACT_ADC, gains={0: 1})
     _, out = convert(series_log(write_log, [0, 10, 20, 30, 40], [20, 10, 10, 10, 10]), cmap)
-    assert flagged(out, "flat_line") == [False, False, False, False, True]
+    assert flagged(out, "flat_line") == [False, False, False, True, True]
 
 
 def test_flat_line_tolerance_is_about_this_records_value(make_map, write_log, convert):
-    # tolerance 1, seconds 20. At t = 20 the window holds 10, 12, 11: all within +/-1 of 11
-    # (flagged, although max - min = 2). At t = 1020 the window holds 15, 16, 14: 16 is 2
-    # away from 14 (not flagged, although all are within +/-1 of the window's first, 15).
+    # tolerance 1, seconds 20. At t = 20 the window [0, 20] holds 10, 12, 11: all within +/-1
+    # of 11 (flagged, although max - min = 2). After the pause, at t = 1000 the window
+    # [980, 1000] holds 15 alone (not flagged: one value is no line, countmill's reading) and
+    # at t = 1010 it holds 15, 16 (flagged: the channel reaches back, and every value in the
+    # window is within 1). At t = 1020 it holds
+    # 15, 16, 14: 16 is 2 away from 14 (not flagged, although all are within +/-1 of 15).
     cmap = make_map([level(qc={"flat": {"tolerance": 1.0, "seconds": 20}})], adc=EXACT_ADC, gains={0: 1})
     times = [0, 10, 20, 1000, 1010, 1020]
     values = [10, 12, 11, 15, 16, 14]
     _, out = convert(series_log(write_log, times, values), cmap)
-    assert flagged(out, "flat_line") == [False, False, True, False, False, False]
+    assert flagged(out, "flat_line") == [False, False, True, False, True, False]
 
 
 def test_flat_line_with_irregular_times(make_map, write_log, convert):
@@ -196,8 +199,12 @@ def contract_flags(times, values, spike, rate, tol, seconds):
             names.add("spike")
         if i > 0 and abs(values[i] - values[i - 1]) / (times[i] - times[i - 1]) > rate:
             names.add("rate_of_change")
-        old = [j for j in range(i) if times[j] <= times[i] - seconds]
-        if old and all(abs(values[k] - values[i]) <= tol for k in range(old[-1], i + 1)):
+        # "records reaching back at least flat.seconds" and "every value in that window
+        # (this record included)": the window is [t - seconds, t]
+        reaches = any(times[j] <= times[i] - seconds for j in range(i))
+        window = [k for k in range(i + 1) if times[i] - seconds <= times[k] <= times[i]]
+        # countmill's reading: a window with this record alone is no line (README)
+        if reaches and len(window) > 1 and all(abs(values[k] - values[i]) <= tol for k in window):
             names.add("flat_line")
         out.append(names)
     return out
@@ -251,13 +258,26 @@ def test_map_level_qc_defaults_are_overridden_per_channel(make_map, write_log, c
     cmap = make_map([level(qc={"spike": 6.0}), level(2, "other")], adc=EXACT_ADC, gains={0: 1},
                     qc={"spike": 50.0, "max_gap": 30})
     lines = []
-    for i, (t, v) in enumerate(zip([0, 10, 20, 70, 80], [10, 10, 20, 10, 10])):
+    for i, (t, v) in enumerate(zip([0, 10, 20, 30, 80], [10, 10, 20, 10, 10])):
         lines += [(at(t), 1, v, 0), (at(t), 2, v, 0)]
     _, out = convert(write_log(lines), cmap)
     assert flagged(out, "spike", "level") == [False, False, True, False, False]
     assert flagged(out, "spike", "other") == [False] * 5
-    assert flagged(out, "gap_before", "level") == [False, False, False, True, False]
-    assert flagged(out, "gap_before", "other") == [False, False, False, True, False]
+    assert flagged(out, "gap_before", "level") == [False, False, False, False, True]
+    assert flagged(out, "gap_before", "other") == [False, False, False, False, True]
+
+
+def test_spike_is_not_judged_across_a_gap(make_map, write_log, convert):
+    # countmill's reading (README): a neighbour more than max_gap away says nothing about a
+    # spike. The 20 at t = 20 has its next value 50 s later (max_gap 30): not judged; the same
+    # series without a max_gap flags it.
+    series = ([0, 10, 20, 70, 80], [10, 10, 20, 10, 10])
+    with_gap = make_map([level(qc={"spike": 6.0, "max_gap": 30})], adc=EXACT_ADC, gains={0: 1})
+    _, out = convert(series_log(write_log, *series), with_gap)
+    assert flagged(out, "spike") == [False] * 5
+    without = make_map([level(qc={"spike": 6.0})], adc=EXACT_ADC, gains={0: 1}, file_name="plain.toml")
+    _, out = convert(series_log(write_log, *series), without)
+    assert flagged(out, "spike") == [False, False, True, False, False]
 
 
 # --------------------------------------------------------------------------- calibration

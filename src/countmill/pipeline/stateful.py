@@ -65,8 +65,9 @@ class Pending:
 
     row: int  # global output row
     line: int
+    time_us: int
     value: float
-    before: float | None  # the value before it, if any
+    before: float | None  # the value before it, if any (None across a gap)
 
 
 @dataclass
@@ -95,7 +96,7 @@ class SeriesState:
         if qc.flat_seconds is not None:
             flags |= self._flat(times, values, qc.flat_tolerance, qc.flat_seconds)
         if qc.spike is not None:
-            patches = self._spike(values, lines, rows, qc.spike, flags)
+            patches = self._spike(times, values, lines, rows, qc.spike, flags)
         self.last_time_us = int(times[-1])
         self.last_value = float(values[-1])
         return flags, patches
@@ -113,18 +114,28 @@ class SeriesState:
         flat = self.flat.test(times, values, tolerance, round(seconds * US))
         return np.where(flat, np.int64(Flag.FLAT_LINE), np.int64(0))
 
-    def _spike(self, values, lines, rows, threshold, flags) -> list[tuple[int, int]]:
+    def _spike(self, times, values, lines, rows, threshold, flags) -> list[tuple[int, int]]:
+        # A neighbour more than max_gap seconds away (a pause, an hour of bad readings) says
+        # nothing about a spike: the test needs both neighbours close in time and in lines.
+        max_gap = np.inf if self.qc.max_gap is None else self.qc.max_gap * US
         patches: list[tuple[int, int]] = []
         pending = self.pending
-        if pending is not None and pending.before is not None and lines[0] - pending.line <= SPIKE_LOOKAHEAD_LINES:
+        if (
+            pending is not None
+            and pending.before is not None
+            and lines[0] - pending.line <= SPIKE_LOOKAHEAD_LINES
+            and times[0] - pending.time_us <= max_gap
+        ):
             if abs(pending.value - (pending.before + values[0]) / 2) > threshold:
                 patches.append((pending.row, int(Flag.SPIKE)))
         before = np.concatenate(([pending.value if pending is not None else np.nan], values[:-1]))
         after = np.concatenate((values[1:], [np.nan]))
         next_line = np.concatenate((lines[1:], [lines[-1]]))
-        near = (next_line - lines) <= SPIKE_LOOKAHEAD_LINES
+        next_time = np.concatenate((times[1:], [times[-1]]))
+        near = ((next_line - lines) <= SPIKE_LOOKAHEAD_LINES) & ((next_time - times) <= max_gap)
         prev_line = np.concatenate(([pending.line if pending is not None else lines[0]], lines[:-1]))
-        before[(lines - prev_line) > SPIKE_LOOKAHEAD_LINES] = np.nan
+        prev_time = np.concatenate(([pending.time_us if pending is not None else times[0]], times[:-1]))
+        before[((lines - prev_line) > SPIKE_LOOKAHEAD_LINES) | ((times - prev_time) > max_gap)] = np.nan
         with np.errstate(invalid="ignore"):
             spike = near & (np.abs(values - (before + after) / 2) > threshold)
         flags[spike] |= int(Flag.SPIKE)
@@ -132,6 +143,7 @@ class SeriesState:
         self.pending = Pending(
             row=int(rows[-1]),
             line=int(lines[-1]),
+            time_us=int(times[-1]),
             value=float(values[-1]),
             before=None if np.isnan(last_before) else float(last_before),
         )
@@ -147,51 +159,65 @@ class SeriesState:
 class FlatWindow:
     """What the flat-line test needs of a channel's past values, in constant memory.
 
-    The window of a record reaches from its *anchor* (the last earlier value whose time is
-    at or before the record's time minus ``seconds``; times are taken as a running maximum
-    so that a clock step back cannot shrink the window) to the record itself. Of the past
-    values, a later record only ever needs the minimum and maximum from its anchor to the
-    end of the past, so the state keeps those suffix extremes as steps: ``starts[k]`` is
-    the time of the first value of step k, ``high[k]``/``low[k]`` the maximum/minimum from
-    there to the last value. Steps whose spread exceeds twice the tolerance are dropped
-    (no window that contains them can be flat), as are steps no later anchor can reach,
-    so a noisy or moving channel keeps only a few steps however long ``seconds`` is.
+    Contract §6: a record is flagged when the channel has records reaching back at least
+    ``seconds`` (its first record is at or before the record's time minus ``seconds``) and
+    every value in the window ``[t − seconds, t]`` (this record included) lies within
+    ± ``tolerance`` of the record's value. Times are taken as a running maximum, so a clock
+    step back cannot shrink or reopen a window.
+
+    Of the past values, a later record only needs the minimum and maximum from the start of
+    its window to the end of the past, so the state keeps those suffix extremes as steps:
+    ``starts[k]`` is the time of the first value of step k, ``high[k]``/``low[k]`` the
+    maximum/minimum from there to the last value. Steps whose spread exceeds twice the
+    tolerance are dropped (no window that contains them can be flat; ``dropped_until``
+    remembers how far they reached), as are steps older than any later window, so a noisy or
+    moving channel keeps only a few steps however long ``seconds`` is.
     """
 
+    first_time_us: int | None = None  # time of the channel's first value
     last_time_us: int | None = None  # running maximum of the times seen
+    dropped_until: int | None = None  # start of the last step dropped for its spread
     starts: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     high: np.ndarray = field(default_factory=lambda: np.zeros(0))
     low: np.ndarray = field(default_factory=lambda: np.zeros(0))
 
     def test(self, times: np.ndarray, values: np.ndarray, tolerance: float, span_us: int) -> np.ndarray:
-        """True where a value is flat: its window reaches back ``span_us`` and every value
-        in it lies within ``tolerance`` of the value (values in file order)."""
+        """True where a value is flat (values in file order, times in µs)."""
         n = len(values)
         if n == 0:
             return np.zeros(0, dtype=bool)
         floor = self.last_time_us if self.last_time_us is not None else np.iinfo(np.int64).min
         mono = np.maximum.accumulate(np.concatenate(([floor], times)))[1:]
-        target = mono - span_us
-        anchor = np.searchsorted(mono, target, side="right") - 1
-        inside = anchor >= 0  # the anchor is a value of this call
+        if self.first_time_us is None:
+            self.first_time_us = int(mono[0])
+        target = mono - span_us  # the window of record i is [target[i], mono[i]]
+        reaches = self.first_time_us <= target
+        start = np.searchsorted(mono, target, side="left")  # first value of this call inside
         hi = np.empty(n)
         lo = np.empty(n)
+        # a lone value is no line: the window must hold another value besides the record
+        # (after a gap or a stretch of bad readings, the first good one is not "flat")
+        company = start < np.arange(n)
+        inside = start > 0  # the window begins among this call's values
         if inside.any():
             here = np.flatnonzero(inside)
-            lo[here], hi[here] = range_min_max(values, anchor[here], here)
-        reaches = inside.copy()
+            lo[here], hi[here] = range_min_max(values, start[here], here)
         if not inside.all():
             past = np.flatnonzero(~inside)
-            step = np.searchsorted(self.starts, target[past], side="right") - 1
-            found = step >= 0
-            past, step = past[found], step[found]
-            reaches[past] = True
             prefix_hi = np.maximum.accumulate(values)
             prefix_lo = np.minimum.accumulate(values)
-            hi[past] = np.maximum(self.high[step], prefix_hi[past])
-            lo[past] = np.minimum(self.low[step], prefix_lo[past])
+            hi[past] = prefix_hi[past]
+            lo[past] = prefix_lo[past]
+            step = np.searchsorted(self.starts, target[past], side="left")
+            some = step < len(self.starts)
+            hi[past[some]] = np.maximum(self.high[step[some]], hi[past[some]])
+            lo[past[some]] = np.minimum(self.low[step[some]], lo[past[some]])
+            company[past[some]] = True
+            if self.dropped_until is not None:
+                # the window reaches into values dropped for their spread: it cannot be flat
+                reaches[past[target[past] <= self.dropped_until]] = False
         with np.errstate(invalid="ignore"):
-            flat = reaches & (hi - values <= tolerance) & (values - lo <= tolerance)
+            flat = reaches & company & (hi - values <= tolerance) & (values - lo <= tolerance)
         self._keep(mono, values, tolerance, span_us)
         return flat
 
@@ -203,16 +229,23 @@ class FlatWindow:
         high = np.concatenate([np.maximum(self.high, suffix_hi[0]), suffix_hi])
         low = np.concatenate([np.minimum(self.low, suffix_lo[0]), suffix_lo])
         self.last_time_us = int(mono[-1])
-        # the anchor of any later record is at or after the anchor of the last one
-        first = max(int(np.searchsorted(starts, mono[-1] - span_us, side="right")) - 1, 0)
+        # every later window starts at or after the last record's window start
+        first = int(np.searchsorted(starts, mono[-1] - span_us, side="left"))
+        if self.dropped_until is not None and self.dropped_until < mono[-1] - span_us:
+            self.dropped_until = None  # no later window reaches that far back
         # a window holding a step with more than twice the tolerance of spread is never flat
         # (the small margin covers rounding in the per-record comparison)
         with np.errstate(invalid="ignore"):
             spread = high[first:] - low[first:]
-            first += int(np.count_nonzero(spread > 2.0 * tolerance * (1.0 + 1e-9) + 1e-300))
+            wide = int(np.count_nonzero(spread > 2.0 * tolerance * (1.0 + 1e-9) + 1e-300))
+        if wide:
+            self.dropped_until = int(starts[first + wide - 1])
+            first += wide
         starts, high, low = starts[first:], high[first:], low[first:]
         if len(starts) > 1:
-            new = np.concatenate(([True], (high[1:] != high[:-1]) | (low[1:] != low[:-1])))
+            # equal suffix extremes: keep the *last* start of a run (a window starting
+            # anywhere in the run sees the same extremes from the run's last start on...)
+            new = np.concatenate(((high[1:] != high[:-1]) | (low[1:] != low[:-1]), [True]))
             starts, high, low = starts[new], high[new], low[new]
         self.starts, self.high, self.low = starts.copy(), high.copy(), low.copy()
 
