@@ -302,6 +302,16 @@ def test_corrupt_gzip_is_exit_1_with_nothing_at_the_final_path(write_log, bench_
     assert sorted(p.name for p in tmp_path.iterdir()) == ["cut.csv.gz", "map.toml"]
 
 
+def test_gz_name_without_gzip_data_is_exit_1(write_log, bench_map, run_cli, tmp_path):
+    # contract §3/§7: gzip accepted for .gz; a .gz that is not gzip is corrupt input (exit 1)
+    raw = tmp_path / "plain.csv.gz"
+    raw.write_bytes(b"time,channel,code,gain\n2026-01-01T00:00:00,1,5,0\n")
+    result = run_cli("convert", raw, "--map", bench_map, "-o", tmp_path / "plain.parquet")
+    assert result.exit_code == 1
+    assert "not gzip" in result.output
+    assert not (tmp_path / "plain.parquet").exists()
+
+
 def test_output_is_written_under_a_temporary_name_until_complete(write_log, bench_map, tmp_path):
     # Look into the output folder while the conversion runs (the progress callback is called
     # after every chunk): the final name must not exist until the end.

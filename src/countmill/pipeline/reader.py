@@ -123,6 +123,9 @@ class LogReader:
         buffered = io.BufferedReader(self._hasher, buffer_size=1 << 20)
         magic = buffered.peek(2)[:2]
         self.compressed = magic == GZIP_MAGIC
+        if self.path.suffix.lower() == ".gz" and not self.compressed:
+            self._file.close()
+            raise InputError(f"{self.path}: named .gz but not gzip data (corrupt or mislabelled)")
         self._stream: BinaryIO = gzip.GzipFile(fileobj=buffered) if self.compressed else buffered
 
     @property
