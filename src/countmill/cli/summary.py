@@ -27,6 +27,24 @@ def print_summary(result) -> None:
         click.echo("")
         click.echo(f"{'channel':<22} {'reason':<20} {'count':>7}  first … last (UTC)")
         click.echo("-" * 96)
-        for event in result.flag_events:
-            label = event["channel"] if event["channel"] is not None else "(unmapped)"
+        for label, event in _grouped(result.flag_events):
             click.echo(f"{label:<22} {event['flag']:<20} {event['count']:>7}  {event['first'][:19]} … {event['last'][:19]}")
+
+
+def _grouped(events: list[dict]):
+    """One line per channel and reason; the same event on many channels (a clock step seen
+    by every channel) is one line, so the summary stays on one screen."""
+    shared: dict[tuple, list[str]] = {}
+    for event in events:
+        key = (event["flag"], event["count"], event["first"][:19], event["last"][:19])
+        shared.setdefault(key, []).append(event["channel"] if event["channel"] is not None else "(unmapped)")
+    shown = set()
+    for event in events:
+        key = (event["flag"], event["count"], event["first"][:19], event["last"][:19])
+        channels = shared[key]
+        if len(channels) >= 3:
+            if key not in shown:
+                shown.add(key)
+                yield f"({len(channels)} channels)", event
+        else:
+            yield (event["channel"] if event["channel"] is not None else "(unmapped)"), event
