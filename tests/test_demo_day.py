@@ -67,3 +67,17 @@ def test_the_clock_step_back_is_seen_once_by_every_channel(demo_result):
 def test_damaged_lines_are_the_only_rejects(demo_result):
     assert demo_result.rejects == 2
     assert demo_result.records + demo_result.rejects == demo_result.data_lines
+
+
+def test_the_swapped_fermenter_sensor_reads_on_across_the_swap(demo_result):
+    # fv1's thermistor is replaced at 14:00 local (a second revision in the map); with the
+    # right revision applied on each side, the fermenter temperature does not jump.
+    import pandas as pd
+    import pyarrow.parquet as pq
+
+    df = pq.read_table(demo_result.output, columns=["time", "channel", "value"]).to_pandas()
+    fv1 = df[df.channel == "fv1_temp"].set_index("time")["value"]
+    swap = pd.Timestamp("2026-11-03T14:00:00Z")
+    before = fv1[(fv1.index >= swap - pd.Timedelta("5min")) & (fv1.index < swap)]
+    after = fv1[(fv1.index >= swap) & (fv1.index < swap + pd.Timedelta("5min"))]
+    assert abs(after.mean() - before.mean()) < 0.3
