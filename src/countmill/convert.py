@@ -18,7 +18,8 @@ from countmill.errors import InputError, UsageError
 from countmill.flags import Flag, Quality, flag_name
 from countmill.pipeline.convert import Converter, Rows
 from countmill.pipeline.output import CsvSink, ParquetSink, RejectsSink
-from countmill.pipeline.reader import LogReader, Records, file_sha256
+from countmill.pipeline.binary_reader import open_log
+from countmill.pipeline.reader import Records, file_sha256
 from countmill.pipeline.stream import BackgroundWriter, InThread, Prefetch
 
 QUALITY_LEVELS = tuple(int(q) for q in Quality)
@@ -267,7 +268,7 @@ def run_conversion(
     rows_written = 0
     records = 0
     try:
-        with LogReader(raw, cmap.input, cmap.timezone, block_bytes=_block_bytes(chunk_rows)) as reader:
+        with open_log(raw, cmap.input, cmap.timezone, chunk_rows) as reader:
             chunks = Prefetch(iter_chunks(reader.blocks(), chunk_rows), name="countmill-read")
             try:
                 for chunk in chunks:
@@ -310,10 +311,6 @@ def run_conversion(
         flag_events=tally.flag_list(),
         source_sha256=source_sha,
     )
-
-
-def _block_bytes(chunk_rows: int) -> int:
-    return int(min(16 << 20, max(64 << 10, chunk_rows * 48)))
 
 
 def _release(converter: Converter, held: list[Rows], held_start: int, emit: Callable[[Rows], None], final: bool):

@@ -24,9 +24,26 @@ class MapInfo(_Strict):
     files: str | None = None
 
 
+#: field types of a binary record (all little-endian), with their size in bytes
+BINARY_DTYPES = {
+    "int8": 1, "uint8": 1, "int16": 2, "uint16": 2, "int32": 4, "uint32": 4,
+    "int64": 8, "uint64": 8, "float32": 4, "float64": 8,
+}
+
+
 class BinaryField(_Strict):
+    """One field of a fixed-size binary record: ``time``, ``channel``, ``code``, ``gain``,
+    or a name starting with ``_`` for bytes the converter skips (status, padding)."""
+
     name: str
-    dtype: str
+    dtype: Literal["int8", "uint8", "int16", "uint16", "int32", "uint32", "int64", "uint64", "float32", "float64"]
+
+    @field_validator("name")
+    @classmethod
+    def _known_name(cls, name: str) -> str:
+        if name not in ("time", "channel", "code", "gain") and not name.startswith("_"):
+            raise ValueError(f"unknown field name {name!r}; known: time, channel, code, gain, or _name for skipped bytes")
+        return name
 
 
 class InputSpec(_Strict):
@@ -34,11 +51,40 @@ class InputSpec(_Strict):
     time: Literal["iso", "unix_s", "unix_ms"] = "iso"
     #: field separator; detected from the first data line when omitted (tab or comma)
     delimiter: str | None = None
-    # binary record layout (fixed-size little-endian records)
+    # binary record layout (fixed-size little-endian records, packed, in the order given)
     format: Literal["text", "binary"] = "text"
     record: list[BinaryField] | None = None
+    #: the binary ``time`` field counts these since ``epoch``
     time_unit: Literal["s", "ms", "us", "ns"] = "ms"
+    #: start of the binary time count; with an offset (or Z) an instant, without one a
+    #: wall-clock time in the map's timezone; default 1970-01-01T00:00:00Z
     epoch: dt.datetime | None = None
+    #: bytes before the first binary record (a file header the converter skips)
+    header_bytes: int = Field(default=0, ge=0)
+
+    @model_validator(mode="after")
+    def _binary_layout(self) -> "InputSpec":
+        if self.format != "binary":
+            if self.record is not None:
+                raise ValueError('record is for format = "binary"; this input is text')
+            return self
+        if not self.record:
+            raise ValueError('format = "binary" needs record = [{ name = "time", dtype = "int64" }, ...]')
+        names = [f.name for f in self.record]
+        missing = {"time", "channel", "code"} - set(names)
+        if missing:
+            raise ValueError(f"record must have fields {sorted(missing)}; got {names}")
+        twice = sorted({n for n in names if names.count(n) > 1})
+        if twice:
+            raise ValueError(f"record names {twice} more than once")
+        for f in self.record:
+            if f.name in ("channel", "code", "gain") and f.dtype.startswith("float"):
+                raise ValueError(f"record field {f.name!r} must be an integer type; got {f.dtype}")
+        return self
+
+    @property
+    def record_bytes(self) -> int:
+        return sum(BINARY_DTYPES[f.dtype] for f in self.record or [])
 
     @field_validator("columns")
     @classmethod

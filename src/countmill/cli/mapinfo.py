@@ -26,11 +26,11 @@ def check_command(map_path, raw):
     click.echo(f"{map_path}: ok — map '{cmap.name}', {len(cmap.channels)} channels ({n_rev} revisions), {len(cmap.derived)} derived, time zone {cmap.timezone}")
     if raw is None:
         return
-    from countmill.pipeline.reader import LogReader
+    from countmill.pipeline.binary_reader import open_log
 
     seen: dict[tuple[int, int], int] = {}
     rejects = 0
-    with LogReader(raw, cmap.input, cmap.timezone) as reader:
+    with open_log(raw, cmap.input, cmap.timezone) as reader:
         for block in reader.blocks():
             rejects += len(block.rejects)
             if len(block):

@@ -86,6 +86,15 @@ class Converter:
         self.derived_by_name = {d.name: d for d in cmap.derived}
         self.unit_index = {u: i for i, u in enumerate(self.units)}
         self.latest: dict[str, LatestValue] = {name: LatestValue() for name in cmap.ids_by_name}
+        # only channels another channel or a derived expression reads need their values kept
+        self.read_by_others = {need.name for rev in cmap.revisions() for need in rev.inputs}
+        self.read_by_others |= {name for d in cmap.derived for name in d.expression.names}
+        # every revision gets a number (its "rid"); per rid + 1 (0 = no revision): name, unit
+        self.revisions = cmap.revisions()
+        self.rid = {id(rev): i for i, rev in enumerate(self.revisions)}
+        self.rid_name = np.array([-1] + [self.name_index[r.name] for r in self.revisions], dtype=np.int32)
+        self.rid_unit = np.array([-1] + [self.unit_index[r.unit] for r in self.revisions], dtype=np.int32)
+        self.rid_revision = np.array([-1] + [r.revision for r in self.revisions], dtype=np.int32)
         self.clocks: dict[object, ClockState] = {}
         self.series: dict[object, SeriesState] = {}
         self.rows_emitted = 0  # global index of the next row produced
@@ -134,14 +143,9 @@ class Converter:
         """Convert the records at ``sel`` (a slice or index array of the grouped chunk)."""
         code = work.code[sel]
         times = work.time_us[sel]
-        flags = np.zeros(len(code), dtype=np.int64)
-        lowest, highest = valid_code_range(rev.adc.bits, rev.adc.coding)
-        flags[(code < lowest) | (code > highest)] |= int(Flag.INVALID_CODE)
-        flags[code == lowest] |= int(Flag.SATURATED_LOW)
-        flags[code == highest] |= int(Flag.SATURATED_HIGH)
-        at_adc = code_to_volts(code, bits=rev.adc.bits, span=rev.adc.span, coding=rev.adc.coding)
-        x = amplifier_input_volts(at_adc, work.gain[sel], rev.gains)
-        flags[np.isnan(x) & ~np.isnan(at_adc)] |= int(Flag.UNKNOWN_GAIN)
+        flags = work.flags[sel].copy()  # the time flags so far
+        at_adc = _adc_volts(code, rev, flags)
+        x = _amplifier_input(at_adc, work.gain[sel], rev, flags)
         work.volts[sel] = x
 
         inputs = {}
@@ -152,8 +156,8 @@ class Converter:
                 if need.to_unit != (1.0, 0.0):
                     values = values * need.to_unit[0] + need.to_unit[1]
                 inputs[need.name] = values
-                flags[np.isnan(values) & ~np.isnan(x)] |= int(Flag.INPUT_MISSING)
-                flags[quality == Quality.SUSPECT] |= int(Flag.INPUT_SUSPECT)
+                _flag(flags, np.isnan(values) & ~np.isnan(x), Flag.INPUT_MISSING)
+                _flag(flags, quality == Quality.SUSPECT, Flag.INPUT_SUSPECT)
         context = StageContext(inputs=inputs)
         for step in rev.chain:
             result = step.stage.apply(x, step.params, context)
@@ -165,19 +169,16 @@ class Converter:
             x = x * scale + offset
         if rev.calibration is not None:
             x = np.polynomial.polynomial.polyval(x, rev.calibration.coefficients)
-            if rev.calibration.overdue_from_us is not None:
-                flags[times >= rev.calibration.overdue_from_us] |= int(Flag.CALIBRATION_OVERDUE)
-        flags |= limit_flags(x, rev.range, rev.expect)
-        flags |= work.flags[sel]
+            due = rev.calibration.overdue_from_us
+            if due is not None and len(times) and times.max() >= due:
+                _flag(flags, times >= due, Flag.CALIBRATION_OVERDUE)
+        _limit_flags(x, rev.range, rev.expect, flags)
         work.value[sel] = x
         work.flags[sel] = flags
-        work.name[sel] = self.name_index[rev.name]
-        work.unit[sel] = self.unit_index[rev.unit]
-        work.evaluated[sel] = True
-        work.revision[sel] = rev.revision
-
+        work.rid[sel] = self.rid[id(rev)]
         usable = _usable(x, flags)
-        if usable.any():
+        work.usable[sel] = usable
+        if rev.name in self.read_by_others and usable.any():
             good = np.flatnonzero(usable)
             q = combine_quality(x[good], flags[good], True)
             self.latest[rev.name].add(work.order[sel][good], times[good], x[good], q)
@@ -189,7 +190,7 @@ class Converter:
         if span is None:
             return None
         lo, hi = span
-        sel = lo + np.flatnonzero(work.name[lo:hi] == trigger_index)
+        sel = lo + np.flatnonzero(self.rid_name[work.rid[lo:hi] + 1] == trigger_index)
         if len(sel) == 0:
             return None
         pos = work.order[sel]  # ascending: the channel's records in file order
@@ -224,12 +225,12 @@ class Converter:
     # --- stateful tests: time order, gaps, rate, flat line and spike, per channel ------------
     def _test_channel(self, work: "_Chunk", cid: int, lo: int, hi: int, row_of, extra: np.ndarray) -> None:
         revs = self.cmap.channels[cid]
-        rev_of = work.revision[lo:hi]
         if len(revs) == 1 and revs[0].valid_from_us == BEGINNING:
             idx = slice(lo, hi)
             max_gap = np.int64(_gap_us(revs[0].qc.max_gap))
             groups = [((cid, revs[0].revision), revs[0].qc, idx)]
         else:
+            rev_of = self.rid_revision[work.rid[lo:hi] + 1]
             mapped = np.flatnonzero(rev_of >= 0)
             if len(mapped) == 0:
                 return
@@ -239,7 +240,8 @@ class Converter:
             groups = [((cid, r.revision), r.qc, idx[rev_of == r.revision]) for r in revs]
         clock = self.clocks.setdefault(cid, ClockState())
         extra[idx] |= clock.test(work.time_us[idx], max_gap)
-        work.evaluated[idx] |= max_gap >= 0
+        # (every converted record is already "evaluated"; clock flags never make a value
+        # unusable, so the usable mask of the conversion stands)
         for series_key, qc, sel in groups:
             if isinstance(sel, slice):
                 if sel.stop == sel.start:
@@ -249,7 +251,7 @@ class Converter:
             if not qc.any_value_test:
                 continue
             values = work.value[sel]
-            usable = np.flatnonzero(_usable(values, work.flags[sel] | extra[sel]))
+            usable = np.flatnonzero(work.usable[sel])
             state = self.series.setdefault(series_key, SeriesState(qc))
             # expire by the series' first line in this chunk: a later line would drop a value
             # whose successor is near, when the chunk is long (output must not depend on it)
@@ -258,11 +260,14 @@ class Converter:
             if len(usable) == 0:
                 continue
             at = usable + sel.start if isinstance(sel, slice) else sel[usable]
-            positions = work.order[at]
-            rows = self.rows_emitted + (positions if row_of is None else row_of[positions])
-            found, patches = state.test(work.time_us[at], values[usable], work.line_at(positions), rows)
+            if qc.spike is not None:  # the spike test waits for the next value: rows and lines
+                positions = work.order[at]
+                rows = self.rows_emitted + (positions if row_of is None else row_of[positions])
+                lines = work.line_at(positions)
+            else:
+                rows = lines = None
+            found, patches = state.test(work.time_us[at], values[usable], lines, rows)
             extra[at] |= found
-            work.evaluated[at] = True
             self.patches.extend(patches)
 
     def _test_derived(self, work: "_Chunk", part: "_DerivedPart") -> None:
@@ -292,51 +297,51 @@ class Converter:
         order = work.order
         flags = work.flags | extra
         if row_of is None:
-            def lay(sorted_values):
-                out = np.empty_like(sorted_values)
-                out[order] = sorted_values
+            def lay(grouped):
+                out = np.empty_like(grouped)
+                out[order] = grouped
                 return out
 
+            rid = lay(work.rid) + 1
             return Rows(
                 time_us=rec.time_us,
                 line=rec.line,
-                name=lay(work.name),
+                name=self.rid_name[rid],
                 channel_id=rec.channel,
                 code=rec.code,
                 gain=rec.gain,
                 volts=lay(work.volts),
                 value=lay(work.value),
-                unit=lay(work.unit),
+                unit=self.rid_unit[rid],
                 flags=lay(flags),
-                evaluated=lay(work.evaluated),
+                evaluated=rid > 0,  # every record a revision converted was evaluated
                 is_derived=np.zeros(n, dtype=bool),
             )
         total = n + sum(len(p.positions) for p in derived_parts if p is not None)
         target = row_of[order]
         derived = np.ones(total, dtype=bool)
         derived[row_of] = False
+        rid = np.zeros(total, dtype=np.int32)  # derived rows: 0 (no revision) for now
+        rid[target] = work.rid + 1
         rows = Rows(
             time_us=np.empty(total, dtype=np.int64),
             line=np.empty(total, dtype=np.int64),
-            name=np.empty(total, dtype=np.int32),
+            name=self.rid_name[rid],
             channel_id=np.full(total, -1, dtype=np.int64),
             code=np.full(total, -1, dtype=np.int64),
             gain=np.full(total, -1, dtype=np.int64),
             volts=np.full(total, np.nan),
             value=np.empty(total),
-            unit=np.empty(total, dtype=np.int32),
+            unit=self.rid_unit[rid],
             flags=np.empty(total, dtype=np.int64),
-            evaluated=np.empty(total, dtype=bool),
+            evaluated=rid > 0,
             is_derived=derived,
         )
         for name in ("time_us", "line", "channel", "code", "gain"):
             getattr(rows, "channel_id" if name == "channel" else name)[row_of] = getattr(rec, name)
-        rows.name[target] = work.name
         rows.volts[target] = work.volts
         rows.value[target] = work.value
-        rows.unit[target] = work.unit
         rows.flags[target] = flags
-        rows.evaluated[target] = work.evaluated
         for part in derived_parts:
             if part is None:
                 continue
@@ -364,8 +369,9 @@ class _Chunk:
     """One chunk laid out channel by channel (stable, so each channel stays in file order).
 
     ``order[i]`` is the file position of grouped record i; ``spans`` maps each channel id
-    met to its (start, stop) in the grouped arrays. The per-record results (``value``,
-    ``volts``, ``flags``, ``name``, ``unit``, ``evaluated``, ``revision``) are grouped too.
+    met to its (start, stop) in the grouped arrays. The per-record results are grouped
+    too: ``value``, ``volts``, ``flags`` (of the conversion), ``rid`` (the converting
+    revision's number, -1 for none) and ``usable`` (a value good or suspect).
     """
 
     def __init__(self, rec: Records, order: np.ndarray, spans: dict[int, tuple[int, int]]):
@@ -378,11 +384,9 @@ class _Chunk:
         self.gain = rec.gain[order]
         self.value = np.full(n, np.nan)
         self.volts = np.full(n, np.nan)
-        self.flags = rec.time_flags[order]
-        self.name = np.full(n, -1, dtype=np.int32)
-        self.unit = np.full(n, -1, dtype=np.int32)
-        self.evaluated = np.zeros(n, dtype=bool)
-        self.revision = np.full(n, -1, dtype=np.int32)
+        self.flags = rec.time_flags[order] if rec.time_flags.any() else np.zeros(n, dtype=np.int64)
+        self.rid = np.full(n, -1, dtype=np.int32)
+        self.usable = np.zeros(n, dtype=bool)
 
     @classmethod
     def grouped(cls, rec: Records) -> "_Chunk":
@@ -434,6 +438,51 @@ class _DerivedPart:
     times: np.ndarray
     lines: np.ndarray
     rows: np.ndarray | None = None  # rows in the chunk's output
+
+
+def _flag(flags: np.ndarray, mask: np.ndarray, flag: int) -> None:
+    """``flags[mask] |= flag``, in place (nothing to do when no record is hit)."""
+    if mask.any():
+        flags[mask] |= int(flag)
+
+
+def _adc_volts(code: np.ndarray, rev: ChannelRevision, flags: np.ndarray) -> np.ndarray:
+    """Volts at the ADC (NaN for an invalid code); sets the code's rail and range flags."""
+    lowest, highest = valid_code_range(rev.adc.bits, rev.adc.coding)
+    at_adc = code_to_volts(code, bits=rev.adc.bits, span=rev.adc.span, coding=rev.adc.coding)
+    low, high = (int(code.min()), int(code.max())) if len(code) else (lowest + 1, lowest + 1)
+    if low < lowest or high > highest:
+        _flag(flags, (code < lowest) | (code > highest), Flag.INVALID_CODE)
+    if low <= lowest:
+        _flag(flags, code == lowest, Flag.SATURATED_LOW)
+    if high >= highest:
+        _flag(flags, code == highest, Flag.SATURATED_HIGH)
+    return at_adc
+
+
+def _amplifier_input(at_adc: np.ndarray, gain: np.ndarray, rev: ChannelRevision, flags: np.ndarray) -> np.ndarray:
+    """Volts at the amplifier input; flags an unknown gain code."""
+    x = amplifier_input_volts(at_adc, gain, rev.gains)
+    missing = np.isnan(x)
+    if missing.any():
+        _flag(flags, missing & ~np.isnan(at_adc), Flag.UNKNOWN_GAIN)
+    return x
+
+
+def _limit_flags(x: np.ndarray, range_, expect, flags: np.ndarray) -> None:
+    """:func:`limit_flags`, ORed into ``flags`` in place; the bounds are compared only when
+    some value lies beyond them."""
+    if (range_ is None and expect is None) or len(x) == 0:
+        return
+    low, high = np.fmin.reduce(x), np.fmax.reduce(x)  # NaN-blind: NaN is never out of range
+    with np.errstate(invalid="ignore"):
+        if range_ is not None:
+            if low < range_[0]:
+                _flag(flags, x < range_[0], Flag.BELOW_RANGE)
+            if high > range_[1]:
+                _flag(flags, x > range_[1], Flag.ABOVE_RANGE)
+        if expect is not None and (low < expect[0] or high > expect[1]):
+            _flag(flags, (x < expect[0]) | (x > expect[1]), Flag.OUTSIDE_EXPECTED)
 
 
 def _gap_us(max_gap_s: float | None) -> int:

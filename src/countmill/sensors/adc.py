@@ -90,9 +90,12 @@ def code_to_volts(code, *, bits: int, span, coding: str = "straight") -> np.ndar
     span0, span1 = (float(s) for s in span)
     if not (np.isfinite(span0) and np.isfinite(span1)) or span0 == span1:
         raise ValueError(f"span must be two different finite voltages, got {span!r}")
-    code = np.asarray(code, dtype=np.float64)
     lsb = (span1 - span0) / 2.0**bits
     origin = span0 if coding == "straight" else (span0 + span1) / 2.0
+    code = np.asarray(code)
+    if code.dtype.kind in "iu" and code.size and lowest <= code.min() and code.max() <= highest:
+        return origin + code.astype(np.float64) * lsb  # integer codes, all valid: no mask
+    code = np.asarray(code, dtype=np.float64)
     volts = origin + code * lsb
     valid = (code >= lowest) & (code <= highest) & (code == np.floor(code))
     return np.where(valid, volts, np.nan)
@@ -185,6 +188,15 @@ def amplifier_input_volts(volts, gain_code, gains: Mapping[int, float]) -> np.nd
     """
     first, table = gain_lookup(gains)
     volts = np.asarray(volts, dtype=np.float64)
+    code = np.asarray(gain_code)
+    if code.dtype.kind in "iu" and code.size and code.shape == volts.shape:  # one gain, or all known
+        low, high = int(code.min()) - first, int(code.max()) - first
+        if 0 <= low and high < table.size:
+            if low == high and not np.isnan(table[low]):
+                return np.asarray(volts / table[low], dtype=np.float64)
+            gain = table[code - first]
+            if not np.isnan(gain).any():
+                return np.asarray(volts / gain, dtype=np.float64)
     code = np.asarray(gain_code, dtype=np.float64)
     index = code - first
     known = (index >= 0) & (index < table.size) & (index == np.floor(index))
