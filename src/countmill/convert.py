@@ -314,21 +314,38 @@ def run_conversion(
 
 
 def _release(converter: Converter, held: list[Rows], held_start: int, emit: Callable[[Rows], None], final: bool):
-    """Emit held rows that no pending spike decision still needs; patch spike flags first."""
+    """Emit held rows that no pending spike decision still needs; patch spike flags first.
+
+    ``held`` is a list of consecutive parts (so a long chunk is never copied just to join
+    it to the few rows still waiting before it); rows before the first pending decision
+    are emitted part by part, the part it falls in is cut.
+    """
     if not held:
         return held, held_start, 0
-    buffer = Rows.concat(held) if len(held) > 1 else held[0]
+    ends = np.cumsum([len(part) for part in held])
     for row, flag in converter.patches:
-        buffer.flags[row - held_start] |= flag
+        at = row - held_start
+        k = int(np.searchsorted(ends, at, side="right"))
+        held[k].flags[at - (int(ends[k - 1]) if k else 0)] |= flag
     converter.patches.clear()
-    stop = len(buffer)
+    stop = int(ends[-1])
     if not final:
         first_pending = converter.held_from()
         if first_pending is not None:
             stop = max(0, first_pending - held_start)
     if stop == 0:
-        return [buffer], held_start, 0
-    done = buffer.take(slice(0, stop))
-    emit(done)
-    rest = buffer.take(slice(stop, None))
-    return ([rest] if len(rest) else []), held_start + stop, stop
+        return held, held_start, 0
+    keep: list[Rows] = []
+    done = 0
+    for part in held:
+        if done >= stop:
+            keep.append(part)
+        elif done + len(part) <= stop:
+            emit(part)
+            done += len(part)
+        else:
+            cut = stop - done
+            emit(part.take(slice(0, cut)))
+            keep.append(part.take(slice(cut, None)))
+            done = stop
+    return keep, held_start + stop, stop

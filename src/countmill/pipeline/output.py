@@ -5,6 +5,7 @@ The file appears at its final path only when complete (``os.replace`` after ``fs
 
 from __future__ import annotations
 
+import base64
 import csv
 import json
 import os
@@ -19,7 +20,9 @@ import pyarrow.parquet as pq
 from countmill.flags import cf_flags_attributes, cf_quality_attributes, names_joined
 from countmill.pipeline.convert import Rows
 
-ROW_GROUP_ROWS = 1 << 20
+#: rows per Parquet row group: about one chunk, so the last one is written soon after the
+#: last chunk is converted
+ROW_GROUP_ROWS = 1 << 18
 
 
 def _meta(d: dict[str, str]) -> dict[bytes, bytes]:
@@ -45,25 +48,45 @@ def tidy_schema() -> pa.Schema:
 
 
 def rows_to_table(rows: Rows, names: list[str], units: list[str], schema: pa.Schema) -> pa.Table:
-    def labels(index: np.ndarray, table: list[str]) -> pa.Array:
+    """An Arrow table of ``schema``; ``channel`` and ``unit`` stay dictionary-encoded when
+    the schema says so (see :func:`dictionary_schema`)."""
+    def labels(index: np.ndarray, table: list[str], field: pa.Field) -> pa.Array:
         indices = pa.array(index, type=pa.int32(), mask=index < 0)
-        return pa.DictionaryArray.from_arrays(indices, pa.array(table, type=pa.string())).dictionary_decode()
+        array = pa.DictionaryArray.from_arrays(indices, pa.array(table, type=pa.string()))
+        return array if pa.types.is_dictionary(field.type) else array.dictionary_decode()
 
     derived = rows.is_derived
     columns = [
         pa.array(rows.time_us, type=pa.int64()).view(pa.timestamp("us", tz="UTC")),
         pa.array(rows.line, type=pa.int64()),
-        labels(rows.name, names),
+        labels(rows.name, names, schema.field("channel")),
         pa.array(rows.channel_id.astype(np.int32), mask=derived),
         pa.array(rows.code.astype(np.int32), mask=derived),
         pa.array(rows.gain.astype(np.int16), mask=derived),
         pa.array(rows.volts, type=pa.float64()),
         pa.array(rows.value, type=pa.float64()),
-        labels(rows.unit, units),
+        labels(rows.unit, units, schema.field("unit")),
         pa.array(rows.quality, type=pa.int8()),
         pa.array(rows.flags, type=pa.int64()),
     ]
     return pa.Table.from_arrays(columns, schema=schema)
+
+
+def dictionary_schema(schema: pa.Schema) -> pa.Schema:
+    """``schema`` with its string columns as dictionary<int32, string>.
+
+    The Parquet writer then takes the channel and unit columns as the converter holds them
+    (an index into a short table of names) and writes their dictionary pages directly,
+    instead of hashing every string of every row again. The file's Parquet columns are the
+    same as for plain strings (BYTE_ARRAY, String, dictionary-encoded); only the Arrow
+    schema stored with it would say "dictionary", so :class:`ParquetSink` stores the plain
+    schema instead (see ``close``).
+    """
+    fields = [
+        pa.field(f.name, pa.dictionary(pa.int32(), pa.string()), metadata=f.metadata) if pa.types.is_string(f.type) else f
+        for f in schema
+    ]
+    return pa.schema(fields, metadata=schema.metadata)
 
 
 def temporary_path(final: Path) -> Path:
@@ -101,9 +124,10 @@ class ParquetSink:
         self.names, self.units = names, units
         # the provenance goes into the Arrow schema itself, so readers see it as schema metadata
         self.schema = tidy_schema().with_metadata({"countmill": json.dumps(provenance)})
+        self._write_schema = dictionary_schema(self.schema)
         self.writer = pq.ParquetWriter(
             self.tmp,
-            self.schema,
+            self._write_schema,
             compression="zstd",
             use_dictionary=["channel", "unit"],
             # times and line numbers climb by small steps: delta encoding makes them almost
@@ -117,7 +141,7 @@ class ParquetSink:
     def write(self, rows: Rows) -> None:
         if len(rows) == 0:
             return
-        self._pending.append(rows_to_table(rows, self.names, self.units, self.schema))
+        self._pending.append(rows_to_table(rows, self.names, self.units, self._write_schema))
         self._pending_rows += len(rows)
         if self._pending_rows >= ROW_GROUP_ROWS:
             self._flush()
@@ -129,6 +153,10 @@ class ParquetSink:
 
     def close(self) -> Path:
         self._flush()
+        # Readers rebuild Arrow types from the stored Arrow schema: store the plain one, so
+        # channel and unit read back as strings, exactly as if written from strings.
+        stored = base64.b64encode(self.schema.serialize().to_pybytes()).decode("ascii")
+        self.writer.add_key_value_metadata({"ARROW:schema": stored})
         self.writer.close()
         publish(self.tmp, self.final)
         return self.final
