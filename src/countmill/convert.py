@@ -136,20 +136,26 @@ class _Tally:
         # np.bincount on a combined key is much faster than np.add.at
         key = index.astype(np.int64) * 10 + rows.quality
         self.counts += np.bincount(key, minlength=self.counts.size).reshape(self.counts.shape)
-        flagged = np.flatnonzero(rows.flags)
-        if len(flagged) == 0:
+        present = int(np.bitwise_or.reduce(rows.flags)) if len(rows) else 0
+        if not present:
             return
+        flagged = np.flatnonzero(rows.flags)
         flags, where, times = rows.flags[flagged], index[flagged], rows.time_us[flagged]
         for flag in Flag:
-            hit = (flags & int(flag)) != 0
-            if not hit.any():
+            if not present & int(flag):
                 continue
-            for channel in np.unique(where[hit]).tolist():
-                t = times[hit & (where == channel)]
-                entry = self.flag_events.setdefault((channel, flag_name(flag)), [0, int(t.min()), int(t.max())])
-                entry[0] += len(t)
-                entry[1] = min(entry[1], int(t.min()))
-                entry[2] = max(entry[2], int(t.max()))
+            hit = np.flatnonzero(flags & int(flag))
+            # per channel: count, first and last time, from one sort of the hits by channel
+            by_channel = np.argsort(where[hit], kind="stable")
+            channel, t = where[hit][by_channel], times[hit][by_channel]
+            starts = np.flatnonzero(np.concatenate(([True], channel[1:] != channel[:-1])))
+            counts = np.diff(np.append(starts, len(channel)))
+            firsts, lasts = np.minimum.reduceat(t, starts), np.maximum.reduceat(t, starts)
+            for c, k, first, last in zip(channel[starts].tolist(), counts.tolist(), firsts.tolist(), lasts.tolist()):
+                entry = self.flag_events.setdefault((c, flag_name(flag)), [0, first, last])
+                entry[0] += k
+                entry[1] = min(entry[1], first)
+                entry[2] = max(entry[2], last)
 
     def label(self, i: int) -> str | None:
         return self.names[i] if i < len(self.names) else None

@@ -186,11 +186,15 @@ class FlatWindow:
         n = len(values)
         if n == 0:
             return np.zeros(0, dtype=bool)
-        floor = self.last_time_us if self.last_time_us is not None else np.iinfo(np.int64).min
-        mono = np.maximum.accumulate(np.concatenate(([floor], times)))[1:]
+        mono = np.maximum.accumulate(times)
+        if self.last_time_us is not None and self.last_time_us > mono[0]:
+            np.maximum(mono, self.last_time_us, out=mono)
         if self.first_time_us is None:
             self.first_time_us = int(mono[0])
         target = mono - span_us  # the window of record i is [target[i], mono[i]]
+        if target[-1] < self.first_time_us:  # no window reaches back far enough yet
+            self._keep(mono, values, tolerance, span_us)
+            return np.zeros(n, dtype=bool)
         reaches = self.first_time_us <= target
         start = np.searchsorted(mono, target, side="left")  # first value of this call inside
         hi = np.empty(n)
@@ -201,7 +205,19 @@ class FlatWindow:
         inside = start > 0  # the window begins among this call's values
         if inside.any():
             here = np.flatnonzero(inside)
-            lo[here], hi[here] = range_min_max(values, start[here], here)
+            if tolerance == 0:
+                # all values equal: the window must start inside the run of equal values
+                # that ends at the record (one pass instead of a sparse table); a value
+                # that is not finite is never flat (inf - inf is no number)
+                change = np.empty(n, dtype=bool)
+                change[0] = True
+                np.not_equal(values[1:], values[:-1], out=change[1:])
+                run_start = np.maximum.accumulate(np.where(change, np.arange(n), 0))
+                same = (start[here] >= run_start[here]) & np.isfinite(values[here])
+                hi[here] = np.where(same, values[here], np.inf)
+                lo[here] = np.where(same, values[here], -np.inf)
+            else:
+                lo[here], hi[here] = range_min_max(values, start[here], here)
         if not inside.all():
             past = np.flatnonzero(~inside)
             prefix_hi = np.maximum.accumulate(values)
