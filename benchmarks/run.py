@@ -1,0 +1,606 @@
+#!/usr/bin/env python3
+"""countmill's speed and memory, measured side by side in one run.
+
+    python benchmarks/run.py                  # 3 million lines, 5 rounds (make bench)
+    python benchmarks/run.py --lines 10000000 --repeat 3
+    python benchmarks/run.py --quick          # tiny files, one round: a smoke test
+
+What is measured, on seeded logs of the demo brewhouse logger (``demo_logs/make_day.py``
+with a 0.01 s scan and no planted faults: 19 channels, linear, RTD, thermistor, type K
+and T thermocouples on a cold-junction channel, dividers, bridge, load cell, 4-20 mA
+loops, a derived channel; ISO local times with milliseconds), cached in
+``benchmarks/data/`` (git-ignored):
+
+* ``convert``: ``countmill.convert.convert_file`` to Parquet, in this process;
+* ``transcode``: the floor, a plain Arrow transcode of the same file:
+  ``pyarrow.csv.open_csv`` streaming with explicit column types into a
+  ``pyarrow.parquet.ParquetWriter`` with the same compression (zstd);
+* ``convert binary``: the same records as fixed-size little-endian binary records;
+* ``read text`` / ``read binary``: the readers alone (records out, nothing converted);
+* the script a user would otherwise write: pandas ``read_csv`` plus a per-row Python
+  function (``DataFrame.apply(axis=1)``: ADC code to volts, gain, linear / RTD /
+  thermistor / loop maths) and ``to_parquet``, timed on a slice and scaled to the file;
+* the CLI start-up (``countmill convert`` of a 100-line file, as its own process);
+* peak resident memory of each conversion in its own process, at two file sizes four times
+  apart (``os.wait4`` gives the child's own ``ru_maxrss``);
+* a thermocouple channel against a linear channel: the converter's cost per record on
+  chunks that differ only in that channel.
+
+The timed steps run interleaved (round after round, the order rotating), and the medians
+are reported, so a busy machine slows every step alike. The table is printed and written to
+``benchmarks/results.json`` with the machine, versions and date.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import gc
+import importlib.util
+import json
+import os
+import platform
+import re
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+MAP = ROOT / "channel_maps" / "brewhouse.toml"
+DATE = dt.date(2026, 11, 3)
+SEED = 20261103
+SCAN_S = 0.01
+
+# --- the data -------------------------------------------------------------------------------
+
+BINARY_INPUT = """[input]
+format = "binary"
+record = [
+  { name = "time", dtype = "int64" },     # ms since local midnight 1970-01-01 (the logger's clock)
+  { name = "channel", dtype = "uint16" },
+  { name = "code", dtype = "int32" },
+  { name = "gain", dtype = "uint8" },
+  { name = "_status", dtype = "uint8" },
+]
+time_unit = "ms"
+epoch = 1970-01-01T00:00:00
+"""
+
+BINARY_DTYPE = np.dtype({"names": ["time", "channel", "code", "gain", "_status"],
+                         "formats": ["<i8", "<u2", "<i4", "<u1", "<u1"],
+                         "offsets": [0, 8, 10, 14, 15], "itemsize": 16})
+
+
+def _make_day_module():
+    spec = importlib.util.spec_from_file_location("countmill_demo_make_day", ROOT / "demo_logs" / "make_day.py")
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[spec.name] = module
+    spec.loader.exec_module(module)
+    return module
+
+
+def binary_map(folder: Path) -> Path:
+    """The demo map with its ``[input]`` table swapped for the binary record layout."""
+    text = MAP.read_text()
+    swapped, count = re.subn(r"(?ms)^\[input\]\n.*?(?=^\[)", BINARY_INPUT + "\n", text, count=1)
+    if count != 1:
+        raise SystemExit(f"{MAP}: no [input] table to replace")
+    path = folder / "brewhouse-binary.toml"
+    if not path.exists() or path.read_text() != swapped:
+        path.write_text(swapped)
+    return path
+
+
+def data_files(folder: Path, lines: int) -> dict[str, Path]:
+    """The CSV and binary logs of ``lines`` records (generated once, then cached)."""
+    target = folder / f"lines-{lines}"
+    csv = target / f"brewhouse-{DATE.isoformat()}.csv"
+    binary = target / f"brewhouse-{DATE.isoformat()}.bin"
+    if not (csv.exists() and binary.exists()):
+        target.mkdir(parents=True, exist_ok=True)
+        md = _make_day_module()
+        print(f"generating {lines:,} lines in {target} ...", file=sys.stderr)
+        made = md.make_day(target, DATE, seed=SEED, scan=SCAN_S, faults=False, max_lines=lines)
+        if Path(made) != csv:
+            Path(made).replace(csv)
+        rec = md.simulate_day(DATE, seed=SEED, scan=SCAN_S, faults=False, max_lines=lines)
+        write_binary(binary, rec["ms"], rec["channel"], rec["code"], rec["gain"])
+    return {"csv": csv, "binary": binary}
+
+
+def write_binary(path: Path, ms_of_day, channel, code, gain) -> None:
+    """Binary records of the same samples as the CSV (times as local wall-clock ms)."""
+    day_ms = (dt.datetime.combine(DATE, dt.time()) - dt.datetime(1970, 1, 1)) // dt.timedelta(milliseconds=1)
+    tmp = path.with_name(path.name + ".part")
+    with open(tmp, "wb") as fh:
+        step = 1 << 21
+        for a in range(0, len(ms_of_day), step):
+            block = np.zeros(min(step, len(ms_of_day) - a), dtype=BINARY_DTYPE)
+            block["time"] = day_ms + np.asarray(ms_of_day[a:a + step], dtype=np.int64)
+            block["channel"] = channel[a:a + step]
+            block["code"] = code[a:a + step]
+            block["gain"] = gain[a:a + step]
+            block.tofile(fh)
+    tmp.replace(path)
+
+
+# --- the steps ------------------------------------------------------------------------------
+
+def step_convert(raw: Path, cmap, out: Path) -> int:
+    from countmill.convert import convert_file
+
+    return convert_file(raw, cmap, out).rows
+
+
+def step_transcode(raw: Path, out: Path) -> int:
+    """The floor: stream the CSV through Arrow's parser into a Parquet writer, nothing else."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+    import pyarrow.parquet as pq
+
+    preamble = 0
+    with open(raw, "rb") as fh:
+        for line in fh:
+            if line.startswith(b"#"):
+                preamble += 1
+                continue
+            preamble += 1  # the header line
+            break
+    read = pacsv.ReadOptions(skip_rows=preamble, column_names=["time", "channel", "code", "gain"])
+    types = pacsv.ConvertOptions(column_types={"time": pa.timestamp("ms"), "channel": pa.int32(),
+                                               "code": pa.int32(), "gain": pa.int16()})
+    rows = 0
+    with pacsv.open_csv(raw, read_options=read, convert_options=types) as reader:
+        with pq.ParquetWriter(out, reader.schema, compression="zstd") as writer:
+            for batch in reader:
+                writer.write_batch(batch)
+                rows += batch.num_rows
+    return rows
+
+
+def step_read(raw: Path, spec, timezone: str) -> int:
+    from countmill.pipeline.binary_reader import open_log
+
+    records = 0
+    with open_log(raw, spec, timezone) as reader:
+        for block in reader.blocks():
+            records += len(block)
+    return records
+
+
+# --- the per-row script a user would otherwise write -----------------------------------------
+
+def per_row_params(map_path: Path) -> dict:
+    """Per channel: ADC, gains and a simplified chain, from the map (no quality tests)."""
+    import tomllib
+
+    doc = tomllib.loads(map_path.read_text())
+    params = {}
+    for entry in doc["channel"]:
+        if entry["id"] in params:
+            continue
+        adc = entry.get("adc", doc["adc"])
+        gains = {int(k): float(v) for k, v in entry.get("gains", doc["gains"]).items()}
+        stages = [s["stage"] for s in entry["chain"]]
+        p = {"bits": adc["bits"], "lo": adc["span"][0], "hi": adc["span"][1], "twos": adc.get("coding") == "twos",
+             "gains": gains, "kind": "linear", "slope": 1.0, "intercept": 0.0}
+        first = entry["chain"][0]
+        if stages == ["linear"]:
+            p.update(slope=first["slope"], intercept=first["intercept"])
+        elif stages == ["current_excitation", "rtd"]:
+            p.update(kind="rtd", amps=first["amps"], lead=first.get("lead_ohms", 0.0), r0=entry["chain"][1].get("r0", 100.0))
+        elif stages[0] == "divider" and "r25" in entry["chain"][1]:
+            p.update(kind="ntc", exc=first["excitation"], rfix=first["r_fixed"], r25=entry["chain"][1]["r25"],
+                     beta=entry["chain"][1]["beta"])
+        elif stages == ["current_loop"]:
+            p.update(kind="loop", shunt=first["shunt"], low=first["low"], high=first["high"])
+        params[entry["id"]] = p
+    return params
+
+
+def per_row_script(csv_slice: Path, params: dict, out: Path) -> int:
+    """What a user writes without countmill: read, one Python call per row, write."""
+    import math
+
+    import pandas as pd
+
+    a, b = 3.9083e-3, -5.775e-7  # IEC 60751 coefficients (0 degC and up)
+
+    def convert_row(row):
+        p = params.get(int(row["channel"]))
+        if p is None:
+            return float("nan")
+        lsb = (p["hi"] - p["lo"]) / 2 ** p["bits"]
+        base = (p["lo"] + p["hi"]) / 2 if p["twos"] else p["lo"]
+        volts = (base + int(row["code"]) * lsb) / p["gains"].get(int(row["gain"]), float("nan"))
+        kind = p["kind"]
+        if kind == "linear":
+            return p["slope"] * volts + p["intercept"]
+        if kind == "rtd":
+            ratio = (volts / p["amps"] - p["lead"]) / p["r0"]
+            disc = a * a - 4 * b * (1 - ratio)
+            return (-a + math.sqrt(disc)) / (2 * b) if disc >= 0 else float("nan")
+        if kind == "ntc":
+            if not 0 < volts < p["exc"]:
+                return float("nan")
+            r = p["rfix"] * volts / (p["exc"] - volts)
+            return 1 / (1 / 298.15 + math.log(r / p["r25"]) / p["beta"]) - 273.15
+        if kind == "loop":
+            ma = volts / p["shunt"] * 1000
+            return p["low"] + (ma - 4) / 16 * (p["high"] - p["low"])
+        return volts
+
+    df = pd.read_csv(csv_slice, comment="#")
+    df["time"] = pd.to_datetime(df["time"]).dt.tz_localize("Europe/Dublin", ambiguous="NaT", nonexistent="NaT")
+    df["value"] = df.apply(convert_row, axis=1)
+    df.to_parquet(out)
+    return len(df)
+
+
+def write_slice(csv: Path, rows: int, target: Path) -> Path:
+    with open(csv, "rb") as src, open(target, "wb") as dst:
+        taken = -1  # the header line comes first
+        for line in src:
+            if line.startswith(b"#"):
+                continue
+            dst.write(line)
+            taken += 1
+            if taken >= rows:
+                break
+    return target
+
+
+# --- thermocouple against linear ----------------------------------------------------------------
+
+TC_MAP = """[map]
+name = "tc-vs-linear"
+timezone = "UTC"
+[adc]
+bits = 16
+span = [-5.0, 5.0]
+coding = "twos"
+[gains]
+0 = 1
+3 = 1000
+[[channel]]
+id = 0
+name = "junction"
+unit = "degC"
+chain = [{ stage = "linear", slope = 100.0, intercept = -50.0 }]
+[[channel]]
+id = 1
+name = "linear_probe"
+unit = "degC"
+chain = [{ stage = "linear", slope = 100.0, intercept = 0.0 }]
+[[channel]]
+id = 2
+name = "type_k_probe"
+unit = "degC"
+chain = [{ stage = "thermocouple", type = "K", cold_junction = "junction" }]
+"""
+
+
+def tc_vs_linear(folder: Path, records: int, repeat: int) -> dict:
+    """Converter cost per record of a type K channel and of a linear channel.
+
+    Three chunks with the same times: the cold-junction channel alone, with a linear
+    channel interleaved, and with a thermocouple channel interleaved; the extra time per
+    extra record is the channel's cost.
+    """
+    from countmill.chanmap import load_map
+    from countmill.pipeline.convert import Converter
+    from countmill.pipeline.reader import Records
+
+    path = folder / "tc-vs-linear.toml"
+    path.write_text(TC_MAP)
+    cmap = load_map(path)
+    rng = np.random.default_rng(SEED)
+    half = records // 2
+    t = 1_790_000_000_000_000 + np.arange(half, dtype=np.int64) * 10_000
+    junction_code = np.full(half, 4600) + rng.integers(-3, 4, half)      # about 20 degC
+    other_code = (2000 + 1500 * np.sin(np.arange(half) / 5000)).astype(np.int64) + rng.integers(-3, 4, half)
+
+    def chunk(channel_id: int | None, gain: int) -> Records:
+        if channel_id is None:
+            n = half
+            return Records(np.arange(1, n + 1), t.copy(), np.zeros(n, np.int64), np.zeros(n, np.int64),
+                           junction_code.astype(np.int64), np.zeros(n, np.int64))
+        n = 2 * half
+        time = np.repeat(t, 2) + np.tile([0, 5_000], half)
+        channel = np.tile([0, channel_id], half)
+        code = np.empty(n, np.int64)
+        code[0::2], code[1::2] = junction_code, other_code
+        gains = np.tile([0, gain], half)
+        return Records(np.arange(1, n + 1), time, np.zeros(n, np.int64), channel.astype(np.int64), code, gains.astype(np.int64))
+
+    chunks = {"junction only": chunk(None, 0), "with linear": chunk(1, 0), "with type K": chunk(2, 3)}
+    times: dict[str, list[float]] = {k: [] for k in chunks}
+    for _ in range(max(repeat, 3) * 3):
+        for name, rec in chunks.items():
+            conv = Converter(cmap)
+            start = time.perf_counter()
+            conv.convert(rec)
+            times[name].append(time.perf_counter() - start)
+    med = {k: statistics.median(v) for k, v in times.items()}
+    linear_us = (med["with linear"] - med["junction only"]) / half * 1e6
+    tc_us = (med["with type K"] - med["junction only"]) / half * 1e6
+    return {
+        "records_per_channel": half,
+        "seconds": med,
+        "linear_us_per_record": linear_us,
+        "thermocouple_us_per_record": tc_us,
+        "thermocouple_over_linear": tc_us / linear_us if linear_us > 0 else None,
+    }
+
+
+# --- child processes: peak memory and start-up -------------------------------------------------
+
+def child(argv: list[str]) -> None:
+    """``run.py --child STEP ARGS...``: one step in a process of its own; prints its peak
+    resident memory in KiB as the last line."""
+    step, *rest = argv
+    if step == "convert":
+        step_convert(Path(rest[0]), rest[1], Path(rest[2]))
+    elif step == "transcode":
+        step_transcode(Path(rest[0]), Path(rest[1]))
+    elif step == "generate":
+        data_files(Path(rest[0]), int(rest[1]))
+    else:
+        raise SystemExit(f"unknown child step {step}")
+    print(own_peak_rss_kib())
+
+
+def own_peak_rss_kib() -> int:
+    """This process's peak resident set since it started (Linux ``VmHWM``).
+
+    ``ru_maxrss`` of a child also counts the memory of the parent it was forked from, so
+    each child reads its own high-water mark instead.
+    """
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1])
+    except OSError:
+        pass
+    import resource
+
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+
+
+def run_child(args: list[str]) -> dict:
+    """Wall and CPU seconds and peak RSS (MiB) of ``args`` run as a child process."""
+    start = time.perf_counter()
+    proc = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    out, err = proc.communicate()
+    wall = time.perf_counter() - start
+    if proc.returncode not in (0, 3):
+        raise SystemExit(f"{' '.join(map(str, args))} failed ({proc.returncode}):\n{err.decode(errors='replace')}")
+    last = out.decode().strip().splitlines()[-1:] or ["0"]
+    return {"wall_s": wall, "peak_rss_mib": int(last[0]) / 1024}
+
+
+def peak_memory(files: dict[int, dict[str, Path]], binmap: Path, out: Path) -> dict:
+    me = [sys.executable, str(Path(__file__).resolve()), "--child"]
+    result = {}
+    for lines, paths in sorted(files.items()):
+        result[str(lines)] = {
+            "convert": run_child(me + ["convert", str(paths["csv"]), str(MAP), str(out / "mem.parquet")]),
+            "convert_binary": run_child(me + ["convert", str(paths["binary"]), str(binmap), str(out / "mem-bin.parquet")]),
+            "transcode": run_child(me + ["transcode", str(paths["csv"]), str(out / "mem-tc.parquet")]),
+        }
+    return result
+
+
+def cli_startup(csv: Path, out: Path) -> dict:
+    """Wall seconds of ``countmill convert`` on a 100-line file, as its own process."""
+    tiny = write_slice(csv, 100, out / "tiny.csv")
+    exe = Path(sys.executable).with_name("countmill")
+    command = [str(exe)] if exe.exists() else [sys.executable, "-m", "countmill.cli"]
+    walls = []
+    for _ in range(3):
+        start = time.perf_counter()
+        done = subprocess.run(command + ["convert", str(tiny), "--map", str(MAP), "-o", str(out / "tiny.parquet"), "-q"],
+                              capture_output=True)
+        walls.append(time.perf_counter() - start)
+        if done.returncode not in (0, 3):
+            raise SystemExit(f"countmill convert failed ({done.returncode}):\n{done.stderr.decode(errors='replace')}")
+    return {"lines": 100, "wall_s": statistics.median(walls)}
+
+
+# --- the report -------------------------------------------------------------------------------
+
+def machine() -> dict:
+    import pandas
+    import pyarrow
+
+    import countmill
+
+    cpu = ""
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                cpu = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+    try:
+        mem_gib = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") / 2**30
+    except (ValueError, OSError):
+        mem_gib = None
+    try:
+        commit = subprocess.run(["git", "-C", str(ROOT), "rev-parse", "--short", "HEAD"], capture_output=True,
+                                text=True, timeout=10).stdout.strip() or None
+    except OSError:
+        commit = None
+    return {
+        "cpu": cpu,
+        "cores": len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count(),
+        "memory_gib": round(mem_gib, 1) if mem_gib else None,
+        "platform": platform.platform(),
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "pyarrow": pyarrow.__version__,
+        "pandas": pandas.__version__,
+        "countmill": countmill.__version__,
+        "commit": commit,
+        "load_average": list(os.getloadavg()),
+    }
+
+
+def med(values: list[float]) -> float:
+    return statistics.median(values)
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = sys.argv[1:] if argv is None else argv
+    if argv[:1] == ["--child"]:
+        child(argv[1:])
+        return 0
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0],
+                                     epilog="example: python benchmarks/run.py --lines 3000000 --repeat 5")
+    parser.add_argument("--lines", type=int, default=3_000_000, help="data lines of the benchmark file (default 3,000,000)")
+    parser.add_argument("--repeat", type=int, default=None, help="rounds of the timed steps (default 5; 1 with --quick)")
+    parser.add_argument("--quick", action="store_true", help="tiny files, one round: checks that the harness runs")
+    parser.add_argument("--data", type=Path, default=ROOT / "benchmarks" / "data", help="cache of generated logs")
+    parser.add_argument("--out", type=Path, default=ROOT / "benchmarks" / "results.json", help="results file")
+    parser.add_argument("--slice", type=int, default=None, help="lines of the per-row pandas slice (default 20,000)")
+    args = parser.parse_args(argv)
+    lines = 20_000 if args.quick else args.lines
+    repeat = args.repeat or (1 if args.quick else 5)
+    slice_rows = args.slice or (1_000 if args.quick else 20_000)
+
+    from countmill.chanmap import load_map
+
+    started = dt.datetime.now(dt.timezone.utc)
+    info = machine()
+    args.data.mkdir(parents=True, exist_ok=True)
+    me = [sys.executable, str(Path(__file__).resolve()), "--child"]
+    for n in (lines, 4 * lines):  # generated in a child: this process stays small
+        run_child(me + ["generate", str(args.data), str(n)])
+    files = {n: data_files(args.data, n) for n in (lines, 4 * lines)}
+    main_files = files[lines]
+    binmap_path = binary_map(args.data)
+    cmap, binmap = load_map(MAP), load_map(binmap_path)
+    size_mb = main_files["csv"].stat().st_size / 1e6
+    binary_mb = main_files["binary"].stat().st_size / 1e6
+
+    with tempfile.TemporaryDirectory(prefix="countmill-bench-") as tmp:
+        out = Path(tmp)
+        csv, binary = main_files["csv"], main_files["binary"]
+        csv_slice = write_slice(csv, slice_rows, out / "slice.csv")
+        params = per_row_params(MAP)
+        steps = {
+            "convert": lambda: step_convert(csv, cmap, out / "convert.parquet"),
+            "transcode": lambda: step_transcode(csv, out / "transcode.parquet"),
+            "convert_binary": lambda: step_convert(binary, binmap, out / "binary.parquet"),
+            "read_text": lambda: step_read(csv, cmap.input, cmap.timezone),
+            "read_binary": lambda: step_read(binary, binmap.input, binmap.timezone),
+            "per_row_slice": lambda: per_row_script(csv_slice, params, out / "per-row.parquet"),
+        }
+        wall: dict[str, list[float]] = {k: [] for k in steps}
+        cpu: dict[str, list[float]] = {k: [] for k in steps}
+        counts: dict[str, int] = {}
+        names = list(steps)
+        for round_ in range(repeat):
+            for k in range(len(names)):
+                name = names[(k + round_) % len(names)]
+                gc.collect()
+                c0, w0 = time.process_time(), time.perf_counter()
+                counts[name] = steps[name]()
+                wall[name].append(time.perf_counter() - w0)
+                cpu[name].append(time.process_time() - c0)
+            print(f"round {round_ + 1}/{repeat}: " + ", ".join(f"{n} {wall[n][-1]:.2f}s" for n in names), file=sys.stderr)
+
+        data_lines = lines
+        same = (counts["transcode"] == counts["read_text"] == counts["read_binary"] == lines
+                and counts["convert"] == counts["convert_binary"])
+        if not same:
+            raise SystemExit(f"the steps did not see the same records: {counts}")
+        scale = data_lines / counts["per_row_slice"]
+        tc = tc_vs_linear(out, 20_000 if args.quick else 400_000, repeat)
+        memory = peak_memory(files, binmap_path, out)
+        startup = cli_startup(csv, out)
+
+    m = {k: med(v) for k, v in wall.items()}
+    per_round = [c / t for c, t in zip(wall["convert"], wall["transcode"])]
+    small, large = str(lines), str(4 * lines)
+    rss_small = memory[small]["convert"]["peak_rss_mib"]
+    rss_large = memory[large]["convert"]["peak_rss_mib"]
+    per_row_s = m["per_row_slice"] * scale
+    results = {
+        "date": started.isoformat(timespec="seconds"),
+        "command": "python benchmarks/run.py " + " ".join(argv),
+        "machine": info,
+        "file": {"lines": data_lines, "csv_mb": round(size_mb, 1), "binary_mb": round(binary_mb, 1),
+                 "rows_out": counts["convert"], "scan_s": SCAN_S, "channels": len(cmap.channels)},
+        "repeat": repeat,
+        "seconds_median": m,
+        "seconds_all": wall,
+        "cpu_seconds_median": {k: med(v) for k, v in cpu.items()},
+        "per_row_script": {"slice_lines": counts["per_row_slice"], "scaled_seconds": per_row_s},
+        "memory": memory,
+        "cli_startup": startup,
+        "thermocouple_vs_linear": tc,
+        "ratios": {
+            "convert_over_transcode": m["convert"] / m["transcode"],
+            "convert_over_transcode_per_round_median": med(per_round),
+            "per_row_script_over_convert": per_row_s / m["convert"],
+            "csv_convert_over_binary_convert": m["convert"] / m["convert_binary"],
+            "csv_read_over_binary_read": m["read_text"] / m["read_binary"],
+            "peak_rss_growth_4x": rss_large / rss_small - 1,
+            "thermocouple_over_linear": tc["thermocouple_over_linear"],
+        },
+        "targets": {
+            "convert_over_transcode": "<= 1.3",
+            "per_row_script_over_convert": ">= 50",
+            "peak_rss_mib": "<= 512",
+            "peak_rss_growth_4x": "< 0.20",
+            "csv_over_binary": ">= 2",
+            "thermocouple_over_linear": "<= 2",
+        },
+    }
+    results["machine"]["load_average_end"] = list(os.getloadavg())
+    args.out.parent.mkdir(parents=True, exist_ok=True)
+    args.out.write_text(json.dumps(results, indent=2) + "\n")
+    print_table(results)
+    print(f"\nwritten {args.out}")
+    return 0
+
+
+def print_table(r: dict) -> None:
+    m, ratios, f = r["seconds_median"], r["ratios"], r["file"]
+    mem = r["memory"]
+    small, large = sorted(mem, key=int)
+    print(f"\ncountmill benchmark  {r['date']}  {r['machine']['cpu']} ({r['machine']['cores']} cores)")
+    print(f"file: {f['lines']:,} lines, {f['csv_mb']} MB CSV / {f['binary_mb']} MB binary -> {f['rows_out']:,} rows;"
+          f" median of {r['repeat']} interleaved rounds")
+    print(f"{'step':<28}{'wall s':>9}{'CPU s':>9}")
+    for name in ("transcode", "convert", "convert_binary", "read_text", "read_binary"):
+        print(f"{name:<28}{m[name]:>9.3f}{r['cpu_seconds_median'][name]:>9.3f}")
+    print(f"{'per-row pandas (scaled)':<28}{r['per_row_script']['scaled_seconds']:>9.1f}"
+          f"   (slice of {r['per_row_script']['slice_lines']:,} lines: {m['per_row_slice']:.2f} s)")
+    print(f"{'CLI start-up (100 lines)':<28}{r['cli_startup']['wall_s']:>9.3f}")
+    print(f"\n{'peak RSS MiB':<28}{small + ' lines':>16}{large + ' lines':>18}")
+    for name in ("convert", "convert_binary", "transcode"):
+        print(f"{name:<28}{mem[small][name]['peak_rss_mib']:>16.0f}{mem[large][name]['peak_rss_mib']:>18.0f}")
+    tc = r["thermocouple_vs_linear"]
+    print(f"\nper record in the converter: linear {tc['linear_us_per_record']:.3f} us, type K "
+          f"{tc['thermocouple_us_per_record']:.3f} us")
+    print("\nratios (target)")
+    targets = r["targets"]
+    print(f"  convert / transcode            {ratios['convert_over_transcode']:8.2f}   ({targets['convert_over_transcode']})")
+    print(f"  per-row pandas / convert       {ratios['per_row_script_over_convert']:8.1f}   ({targets['per_row_script_over_convert']})")
+    print(f"  CSV / binary, convert          {ratios['csv_convert_over_binary_convert']:8.2f}   ({targets['csv_over_binary']})")
+    print(f"  CSV / binary, reader alone     {ratios['csv_read_over_binary_read']:8.2f}")
+    print(f"  peak RSS growth at 4x lines    {ratios['peak_rss_growth_4x'] * 100:7.1f} %  ({targets['peak_rss_growth_4x']})")
+    tco = ratios["thermocouple_over_linear"]
+    print(f"  thermocouple / linear channel  {tco:8.2f}   ({targets['thermocouple_over_linear']})" if tco is not None else "")
+
+
+if __name__ == "__main__":
+    sys.exit(main())
