@@ -106,7 +106,7 @@ def _load_builtin() -> None:
         return
     _loaded = True
     # Importing a module registers its stages.
-    from countmill.stages import builtin  # noqa: F401
+    from countmill.stages import builtin, electrical  # noqa: F401
 
     try:
         from countmill.stages import thermocouple  # noqa: F401
