@@ -33,66 +33,136 @@ def _empty():
     return np.zeros(0, dtype=np.int64)
 
 
+def _run_starts(times: np.ndarray) -> np.ndarray:
+    """Starts of the stretches in which ``times`` never decrease (a clock step back begins
+    a new one)."""
+    if len(times) == 0:
+        return _empty()
+    return np.concatenate(([0], np.flatnonzero(times[1:] < times[:-1]) + 1))
+
+
+def _last_within(times: np.ndarray, runs: np.ndarray, stop: int, low: int, high: int) -> int:
+    """Index of the last value before ``stop`` with ``low <= time <= high``, or -1.
+
+    Stretch by stretch from the end: in a stretch the times never decrease, so the last
+    value at or before ``high`` is found by bisection, and if it is older than ``low`` so
+    is every earlier value of the stretch.
+    """
+    for r in range(int(np.searchsorted(runs, stop, side="left")) - 1, -1, -1):
+        a = int(runs[r])
+        b = min(int(runs[r + 1]) if r + 1 < len(runs) else len(times), stop)
+        j = a + int(np.searchsorted(times[a:b], high, side="right")) - 1
+        if j >= a and times[j] >= low:
+            return j
+    return -1
+
+
+@dataclass
+class _Stretch:
+    """Values of one earlier chunk, in file order."""
+
+    times: np.ndarray
+    values: np.ndarray
+    quality: np.ndarray
+    newest: int
+    runs: np.ndarray
+
+
 @dataclass
 class LatestValue:
-    """Usable values of one channel: the carried history and this chunk's values."""
+    """Usable values of one channel: the carried history and this chunk's values.
 
-    # history from earlier chunks (file order), all before any position of this chunk
-    hist_times: np.ndarray = field(default_factory=_empty)
-    hist_values: np.ndarray = field(default_factory=lambda: np.zeros(0))
-    hist_quality: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int8))
+    The history is kept chunk by chunk (no copy of it per chunk or per lookup); a chunk's
+    values leave it once all of them are more than :data:`HISTORY_SECONDS` older than the
+    newest time reached, which is when no lookup can take them any more.
+    """
+
+    history: list[_Stretch] = field(default_factory=list)  # earlier chunks, file order
     hist_newest: int = _NEVER
     # this chunk's usable records (positions within the chunk)
     positions: np.ndarray = field(default_factory=_empty)
     times: np.ndarray = field(default_factory=_empty)
     values: np.ndarray = field(default_factory=lambda: np.zeros(0))
     quality: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int8))
+    _newest_so_far: np.ndarray | None = None  # running maximum of ``times``
+    _runs: np.ndarray | None = None
 
     def add(self, positions, times, values, quality) -> None:
         """Record this chunk's usable values of the channel."""
-        positions = np.concatenate([self.positions, positions])
-        order = np.argsort(positions, kind="stable")
-        self.positions = positions[order]
-        self.times = np.concatenate([self.times, times])[order]
-        self.values = np.concatenate([self.values, values])[order]
-        self.quality = np.concatenate([self.quality, quality])[order]
+        if len(self.positions):
+            positions = np.concatenate([self.positions, positions])
+            order = np.argsort(positions, kind="stable")
+            self.positions = positions[order]
+            self.times = np.concatenate([self.times, times])[order]
+            self.values = np.concatenate([self.values, values])[order]
+            self.quality = np.concatenate([self.quality, quality])[order]
+        else:
+            self.positions, self.times, self.values, self.quality = positions, times, values, quality
+        self._newest_so_far = self._runs = None
 
     def lookup(self, positions: np.ndarray, times: np.ndarray, max_age_us: int):
         """Values (NaN where none) and their quality for records at ``positions``/``times``."""
-        n_hist = len(self.hist_times)
-        all_t = np.concatenate([self.hist_times, self.times])
-        all_v = np.concatenate([self.hist_values, self.values])
-        all_q = np.concatenate([self.hist_quality, self.quality])
         out_v = np.full(len(positions), np.nan)
         out_q = np.full(len(positions), Quality.MISSING, dtype=np.int8)
-        if len(all_t) == 0 or len(positions) == 0:
+        if (not self.history and len(self.times) == 0) or len(positions) == 0:
             return out_v, out_q
-        # last usable record on an earlier line, and the newest time reached up to it
-        last = n_hist + np.searchsorted(self.positions, positions, side="left") - 1
-        newest = np.maximum.accumulate(np.concatenate([[self.hist_newest], all_t]))[last + 1]
-        have = last >= 0
+        if self._newest_so_far is None:
+            self._newest_so_far = np.maximum.accumulate(self.times) if len(self.times) else _empty()
+            self._runs = _run_starts(self.times)
+        # the last usable record on an earlier line: in this chunk (k >= 0) or the last
+        # value of the history; and the newest time reached up to it
+        k = np.searchsorted(self.positions, positions, side="left") - 1
+        here = k >= 0
+        ks = np.maximum(k, 0)
+        newest = np.full(len(positions), self.hist_newest, dtype=np.int64)
+        if len(self.times):
+            newest[here] = np.maximum(self.hist_newest, self._newest_so_far[ks[here]])
+        have = here | bool(self.history)
         lo = np.maximum(times - max_age_us, newest - HISTORY_SECONDS * _US)
-        src_t = np.where(have, all_t[np.maximum(last, 0)], _NEVER)
+        if len(self.times):
+            src_t = np.where(here, self.times[ks], self.history[-1].times[-1] if self.history else _NEVER)
+        else:
+            src_t = np.full(len(positions), self.history[-1].times[-1])
         direct = have & (src_t <= times) & (src_t >= lo)
-        take = np.where(direct, last, -1)
+        if direct.any():
+            d_here = direct & here
+            out_v[d_here] = self.values[k[d_here]]
+            out_q[d_here] = self.quality[k[d_here]]
+            d_hist = direct & ~here
+            if d_hist.any():
+                last = self.history[-1]
+                out_v[d_hist] = last.values[-1]
+                out_q[d_hist] = last.quality[-1]
         # the last record failed the time test; an earlier one may pass (clocks stepped back)
-        for i in np.flatnonzero(have & ~direct & (newest >= lo)):
-            ok = np.flatnonzero((all_t[: last[i]] <= times[i]) & (all_t[: last[i]] >= lo[i]))
-            if len(ok):
-                take[i] = ok[-1]
-        found = take >= 0
-        out_v[found] = all_v[take[found]]
-        out_q[found] = all_q[take[found]]
+        for i in np.flatnonzero(have & ~direct & (newest >= lo)).tolist():
+            found = self._search(int(k[i]), int(lo[i]), int(times[i]))
+            if found is not None:
+                out_v[i], out_q[i] = found
         return out_v, out_q
 
+    def _search(self, k: int, low: int, high: int):
+        """(value, quality) of the last record before the one at chunk index ``k`` (or, for
+        ``k < 0``, before the history's last value) with ``low <= time <= high``."""
+        if k >= 0:
+            j = _last_within(self.times, self._runs, k, low, high)
+            if j >= 0:
+                return self.values[j], self.quality[j]
+        for n, part in enumerate(reversed(self.history)):
+            stop = len(part.times) - 1 if (k < 0 and n == 0) else len(part.times)
+            j = _last_within(part.times, part.runs, stop, low, high)
+            if j >= 0:
+                return part.values[j], part.quality[j]
+        return None
+
     def end_chunk(self) -> None:
-        """Fold this chunk into the carried history, keeping the last HISTORY_SECONDS."""
-        all_t = np.concatenate([self.hist_times, self.times])
-        if len(all_t):
-            self.hist_newest = max(self.hist_newest, int(all_t.max()))
-            keep = all_t >= self.hist_newest - HISTORY_SECONDS * _US
-            self.hist_times = all_t[keep]
-            self.hist_values = np.concatenate([self.hist_values, self.values])[keep]
-            self.hist_quality = np.concatenate([self.hist_quality, self.quality])[keep]
+        """Fold this chunk into the carried history and drop what no lookup can take."""
+        if len(self.times):
+            newest = int(self.times.max())
+            self.history.append(_Stretch(self.times, self.values, self.quality, newest, _run_starts(self.times)))
+            self.hist_newest = max(self.hist_newest, newest)
+            oldest_useful = self.hist_newest - HISTORY_SECONDS * _US
+            while self.history and self.history[0].newest < oldest_useful:
+                self.history.pop(0)
         self.positions, self.times = _empty(), _empty()
         self.values, self.quality = np.zeros(0), np.zeros(0, dtype=np.int8)
+        self._newest_so_far = self._runs = None
