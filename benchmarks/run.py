@@ -290,7 +290,9 @@ def tc_vs_linear(folder: Path, records: int, repeat: int) -> dict:
 
     Three chunks with the same times: the cold-junction channel alone, with a linear
     channel interleaved, and with a thermocouple channel interleaved; the extra time per
-    extra record is the channel's cost.
+    extra record is the channel's cost. ``records`` per chunk: by default each channel has
+    as many records as one channel of the demo map has in a default chunk (250,000 records
+    over 19 channels), the array length the converter works on in the main benchmark.
     """
     from countmill.chanmap import load_map
     from countmill.pipeline.convert import Converter
@@ -320,7 +322,8 @@ def tc_vs_linear(folder: Path, records: int, repeat: int) -> dict:
 
     chunks = {"junction only": chunk(None, 0), "with linear": chunk(1, 0), "with type K": chunk(2, 3)}
     times: dict[str, list[float]] = {k: [] for k in chunks}
-    for _ in range(max(repeat, 3) * 3):
+    rounds = max(repeat, 3) * max(3, 200_000 // max(half, 1))
+    for _ in range(rounds):
         for name, rec in chunks.items():
             conv = Converter(cmap)
             start = time.perf_counter()
@@ -475,6 +478,7 @@ def main(argv: list[str] | None = None) -> int:
     slice_rows = args.slice or (1_000 if args.quick else 20_000)
 
     from countmill.chanmap import load_map
+    from countmill.convert import DEFAULT_CHUNK_ROWS
 
     started = dt.datetime.now(dt.timezone.utc)
     info = machine()
@@ -522,7 +526,7 @@ def main(argv: list[str] | None = None) -> int:
         if not same:
             raise SystemExit(f"the steps did not see the same records: {counts}")
         scale = data_lines / counts["per_row_slice"]
-        tc = tc_vs_linear(out, 20_000 if args.quick else 400_000, repeat)
+        tc = tc_vs_linear(out, 20_000 if args.quick else 2 * (DEFAULT_CHUNK_ROWS // len(cmap.channels)), repeat)
         memory = peak_memory(files, binmap_path, out)
         startup = cli_startup(csv, out)
 

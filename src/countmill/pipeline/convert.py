@@ -156,7 +156,9 @@ class Converter:
                 if need.to_unit != (1.0, 0.0):
                     values = values * need.to_unit[0] + need.to_unit[1]
                 inputs[need.name] = values
-                _flag(flags, np.isnan(values) & ~np.isnan(x), Flag.INPUT_MISSING)
+                missing = np.isnan(values)
+                if missing.any():
+                    _flag(flags, missing & ~np.isnan(x), Flag.INPUT_MISSING)
                 _flag(flags, quality == Quality.SUSPECT, Flag.INPUT_SUSPECT)
         context = StageContext(inputs=inputs)
         for step in rev.chain:

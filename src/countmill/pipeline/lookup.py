@@ -102,16 +102,23 @@ class LatestValue:
 
     def lookup(self, positions: np.ndarray, times: np.ndarray, max_age_us: int):
         """Values (NaN where none) and their quality for records at ``positions``/``times``."""
-        out_v = np.full(len(positions), np.nan)
-        out_q = np.full(len(positions), Quality.MISSING, dtype=np.int8)
         if (not self.history and len(self.times) == 0) or len(positions) == 0:
-            return out_v, out_q
+            return np.full(len(positions), np.nan), np.full(len(positions), Quality.MISSING, dtype=np.int8)
         if self._newest_so_far is None:
             self._newest_so_far = np.maximum.accumulate(self.times) if len(self.times) else _empty()
             self._runs = _run_starts(self.times)
         # the last usable record on an earlier line: in this chunk (k >= 0) or the last
         # value of the history; and the newest time reached up to it
         k = np.searchsorted(self.positions, positions, side="left") - 1
+        if len(self.times) and k.min() >= 0:  # all in this chunk
+            newest = np.maximum(self._newest_so_far[k], self.hist_newest)
+            src_t = self.times[k]
+            lo = np.maximum(times - max_age_us, newest - HISTORY_SECONDS * _US)
+            direct = (src_t <= times) & (src_t >= lo)
+            if direct.all():  # the common case: the last earlier value is the one
+                return self.values[k], self.quality[k]
+        out_v = np.full(len(positions), np.nan)
+        out_q = np.full(len(positions), Quality.MISSING, dtype=np.int8)
         here = k >= 0
         ks = np.maximum(k, 0)
         newest = np.full(len(positions), self.hist_newest, dtype=np.int64)

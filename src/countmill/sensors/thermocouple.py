@@ -125,31 +125,70 @@ def _horner(coefficients: np.ndarray, x: np.ndarray) -> np.ndarray:
     return y
 
 
-def _emf_and_slope(t: np.ndarray, tab: _TypeTables) -> tuple[np.ndarray, np.ndarray]:
-    """E(t) [mV] and dE/dt [mV/degC], each subrange's polynomial used past its ends too."""
+def _emf_and_slope(t: np.ndarray, tab: _TypeTables, slope: bool = True, bounds=None) -> tuple[np.ndarray, np.ndarray | None]:
+    """E(t) [mV] and dE/dt [mV/degC] (None unless ``slope``), each subrange's polynomial
+    used past its ends too. ``bounds``: min and max of ``t`` when already known."""
+    single = _one_subrange(t, tab.t_breaks, "left", bounds)
+    if single is not None:  # all in one subrange: no sorting out
+        return _subrange(t, single, tab, slope)
     piece = np.searchsorted(tab.t_breaks, t, side="left")
     e = np.empty_like(t)
-    s = np.empty_like(t)
-    for k, c in enumerate(tab.c):
+    s = np.empty_like(t) if slope else None
+    for k in range(len(tab.c)):
         sel = piece == k
         if not sel.any():
             continue
-        x = t[sel]
+        e[sel], dp = _subrange(t[sel], k, tab, slope)
+        if slope:
+            s[sel] = dp
+    return e, s
+
+
+def _one_subrange(x: np.ndarray, breaks: np.ndarray, side: str, bounds=None) -> int | None:
+    """The subrange every value of ``x`` falls in, when they all fall in one (no NaN)."""
+    if x.size == 0:
+        return None
+    low, high = (x.min(), x.max()) if bounds is None else bounds
+    if np.isnan(low) or np.isnan(high):
+        return None
+    first, last = np.searchsorted(breaks, [low, high], side=side)
+    return int(first) if first == last else None
+
+
+def _bounds_within(x: np.ndarray, low: float, high: float):
+    """(min, max) of ``x`` when every value is within [low, high] (none NaN), else None."""
+    if x.size == 0:
+        return None
+    bounds = x.min(), x.max()
+    return bounds if bounds[0] >= low and bounds[1] <= high else None
+
+
+def _subrange(x: np.ndarray, k: int, tab: _TypeTables, slope: bool) -> tuple[np.ndarray, np.ndarray | None]:
+    """E and dE/dt on subrange k of the reference function (Horner, both together)."""
+    c = tab.c[k]
+    if slope:
         p = np.full_like(x, c[-1])
         dp = np.zeros_like(x)
-        for ci in c[-2::-1]:  # Horner for the polynomial and its derivative together
+        for ci in c[-2::-1]:
             dp *= x
             dp += p
             p *= x
             p += ci
-        if tab.exponential is not None and k == len(tab.c) - 1:
-            a0, a1, a2 = tab.exponential
-            g = a0 * np.exp(a1 * (x - a2) ** 2)
-            p += g
-            dp += g * 2.0 * a1 * (x - a2)
-        e[sel] = p
-        s[sel] = dp
-    return e, s
+    else:
+        dp = None
+        p = x * c[-1] if len(c) > 1 else np.full_like(x, c[-1])  # = c[-1] times x, one pass
+        for n, ci in enumerate(c[-2::-1]):
+            if n:
+                p *= x
+            p += ci
+    if tab.exponential is not None and k == len(tab.c) - 1:
+        a0, a1, a2 = tab.exponential
+        offset = x - a2
+        g = a0 * np.exp(a1 * offset ** 2)
+        p += g
+        if slope:
+            dp += g * 2.0 * a1 * offset
+    return p, dp
 
 
 def _as_float_array(x) -> np.ndarray:
@@ -216,8 +255,10 @@ def thermocouple_emf(t, *, type: str):
     """
     tab = _tables(_letter(type))
     t = _as_float_array(t)
-    t[~((t >= tab.t_min) & (t <= tab.t_max))] = np.nan
-    return _shape_out(_emf_and_slope(t, tab)[0])
+    bounds = _bounds_within(t, tab.t_min, tab.t_max)
+    if bounds is None:
+        t[~((t >= tab.t_min) & (t <= tab.t_max))] = np.nan
+    return _shape_out(_emf_and_slope(t, tab, slope=False, bounds=bounds)[0])
 
 
 def thermocouple_temperature(emf, *, type: str):
@@ -264,8 +305,10 @@ def thermocouple_temperature(emf, *, type: str):
     """
     tab = _tables(_letter(type))
     e = _as_float_array(emf)
-    e[~((e >= tab.e_min - _EMF_ROUND_OFF_MV) & (e <= tab.e_max + _EMF_ROUND_OFF_MV))] = np.nan
-    t = _inverse_polynomial(e, tab)
+    bounds = _bounds_within(e, tab.e_min - _EMF_ROUND_OFF_MV, tab.e_max + _EMF_ROUND_OFF_MV)
+    if bounds is None:
+        e[~((e >= tab.e_min - _EMF_ROUND_OFF_MV) & (e <= tab.e_max + _EMF_ROUND_OFF_MV))] = np.nan
+    t = _inverse_polynomial(e, tab, bounds)
     for _ in range(_NEWTON_STEPS):
         f, s = _emf_and_slope(t, tab)
         t -= (f - e) / s
@@ -273,8 +316,11 @@ def thermocouple_temperature(emf, *, type: str):
     return _shape_out(t)
 
 
-def _inverse_polynomial(e: np.ndarray, tab: _TypeTables) -> np.ndarray:
+def _inverse_polynomial(e: np.ndarray, tab: _TypeTables, bounds=None) -> np.ndarray:
     """NIST's approximate inverse t(E) [degC], no range check (NaN in, NaN out)."""
+    single = _one_subrange(e, tab.e_breaks, "right", bounds)
+    if single is not None:  # all in one subrange
+        return _horner(tab.d[single], e)
     piece = np.searchsorted(tab.e_breaks, e, side="right")
     t = np.empty_like(e)
     for k, d in enumerate(tab.d):
