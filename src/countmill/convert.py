@@ -71,7 +71,6 @@ def provenance(cmap: ChannelMap, source: Path, source_sha256: str) -> dict:
     channels: dict[str, dict] = {}
     for cid in cmap.order:
         revisions = cmap.channels[cid]
-        latest = revisions[-1]
         entries = [
             {
                 "from": rev.valid_from_text,
@@ -88,15 +87,17 @@ def provenance(cmap: ChannelMap, source: Path, source_sha256: str) -> dict:
             }
             for rev in revisions
         ]
+        # a channel renamed in a revision is listed under each name, with the latest
+        # revision that carries that name (the rows under a name are that name's revisions)
         for rev in revisions:
-            channels.setdefault(rev.name, {
+            channels[rev.name] = {
                 "id": cid,
-                "unit": latest.unit,
-                "description": latest.description,
-                "chain": latest.chain_metadata(),
-                "calibration": latest.calibration.as_metadata() if latest.calibration else None,
+                "unit": rev.unit,
+                "description": rev.description,
+                "chain": rev.chain_metadata(),
+                "calibration": rev.calibration.as_metadata() if rev.calibration else None,
                 "revisions": entries,
-            })
+            }
     for d in cmap.derived:
         channels[d.name] = {
             "id": None,
