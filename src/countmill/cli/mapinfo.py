@@ -47,10 +47,15 @@ def check_command(map_path, raw):
         gains = revs[-1].gains
         factor = gains.get(gain)
         note = "" if factor is not None else "unknown gain code"
-        click.echo(f"{cid:>5}  {revs[-1].name:<22} {gain:>9} {factor if factor is not None else '-':>8} {count:>9}  {note}")
+        click.echo(f"{cid:>5}  {_names(revs):<22} {gain:>9} {factor if factor is not None else '-':>8} {count:>9}  {note}")
     missing = sorted(set(cmap.channels) - {cid for cid, _ in seen})
     for cid in missing:
-        click.echo(f"{cid:>5}  {cmap.channels[cid][-1].name:<22} {'':>9} {'':>8} {0:>9}  in the map, not in the file")
+        click.echo(f"{cid:>5}  {_names(cmap.channels[cid]):<22} {'':>9} {'':>8} {0:>9}  in the map, not in the file")
+
+
+def _names(revisions) -> str:
+    """A channel's name, or its names in revision order when a revision renamed it."""
+    return " / ".join(dict.fromkeys(rev.name for rev in revisions))
 
 
 def describe_map(cmap: ChannelMap) -> list[str]:
