@@ -174,7 +174,7 @@ class DerivedSpec(_Strict):
     range: tuple[float, float] | None = None
     expect: tuple[float, float] | None = None
     qc: QcSpec | None = None
-    max_age: float = Field(default=60.0, gt=0)
+    max_age: float = Field(default=60.0, gt=0, le=3600)  # [s]; inputs keep two hours of history
 
     _check_range = field_validator("range", "expect")(classmethod(lambda cls, v: _limits(v)))
 
