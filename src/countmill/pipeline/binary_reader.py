@@ -97,6 +97,9 @@ class BinaryLogReader:
         magic = self._file.read(2)
         self._file.seek(0)
         self.compressed = magic == GZIP_MAGIC
+        if self.path.suffix.lower() == ".gz" and not self.compressed:
+            self._file.close()
+            raise InputError(f"{self.path}: named .gz but not gzip data (corrupt or mislabelled)")
         self._stream: BinaryIO = gzip.GzipFile(fileobj=self._counter) if self.compressed else self._file
 
     @property
@@ -261,7 +264,7 @@ def open_log(path: str | Path, spec: InputSpec, timezone: str, chunk_rows: int =
     """The reader for a raw log of the map's ``[input] format``: text or binary."""
     if spec.format == "binary":
         return BinaryLogReader(path, spec, timezone, block_records=chunk_rows)
-    return LogReader(path, spec, timezone, block_bytes=_text_block_bytes(chunk_rows))
+    return LogReader(path, spec, timezone, block_bytes=_text_block_bytes(chunk_rows), block_lines=chunk_rows)
 
 
 def _text_block_bytes(chunk_rows: int) -> int:

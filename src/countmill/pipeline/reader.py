@@ -102,12 +102,17 @@ def file_sha256(path: str | Path) -> str:
 class LogReader:
     """Iterates over :class:`Records` of a raw log, one block at a time."""
 
-    def __init__(self, path: str | Path, spec: InputSpec, timezone: str, block_bytes: int = 4 << 20):
+    def __init__(self, path: str | Path, spec: InputSpec, timezone: str, block_bytes: int = 4 << 20,
+                 block_lines: int | None = None):
         self.path = Path(path)
         self.spec = spec
         self.columns = list(spec.columns)
         self.clock = LocalClock(timezone)
         self.block_bytes = block_bytes
+        #: when given, blocks are sized to hold about this many lines (from the length of the
+        #: lines read so far), so that a chunk of ``block_lines`` rows is one block, unsplit
+        self.block_lines = block_lines
+        self._bytes_parsed = 0
         self.delimiter = spec.delimiter
         self.lines_seen = 0
         self.data_lines = 0
@@ -151,7 +156,7 @@ class LogReader:
         leftover = b""
         first = True
         while True:
-            data = self._read(self.block_bytes)
+            data = self._read(self._read_size(len(leftover)))
             if first:
                 first = False
                 if data.startswith(BOM):
@@ -168,10 +173,20 @@ class LogReader:
                     leftover = buf
                     continue
                 block, leftover = buf[: cut + 1], buf[cut + 1:]
+            self._bytes_parsed += len(block)
             records = self._parse_block(block, last=eof)
             yield records
             if eof:
                 break
+
+    def _read_size(self, pending: int) -> int:
+        if self.block_lines is None:
+            return self.block_bytes
+        if self.lines_seen == 0:  # a small first block: the converter starts sooner
+            return min(self.block_bytes, 1 << 20)
+        per_line = self._bytes_parsed / self.lines_seen
+        # a little under the target, so that a block is not cut into a chunk and a sliver
+        return int(min(32 << 20, max(64 << 10, self.block_lines * per_line * 0.98 - pending)))
 
     # --- block parsing ---------------------------------------------------------------------
     def _parse_block(self, block: bytes, last: bool) -> Records:
