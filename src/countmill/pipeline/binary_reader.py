@@ -236,6 +236,11 @@ class BinaryLogReader:
                 us = us + self.epoch_us
                 bad = ~np.isfinite(us) | (np.abs(us) > TIME_LIMIT_US)
             return np.where(bad, 0, us).astype(np.int64), bad
+        if unit is not None and len(raw):
+            # the common case, every count comfortably in range: no masks
+            limit = (int(TIME_LIMIT_US) - abs(self.epoch_us)) // unit
+            if -limit <= int(raw.min()) and int(raw.max()) <= limit:
+                return raw.astype(np.int64) * unit + self.epoch_us, np.zeros(len(raw), dtype=bool)
         if raw.dtype.kind == "u" and raw.dtype.itemsize == 8:
             too_big = raw > np.uint64(np.iinfo(np.int64).max)
             counts = np.where(too_big, 0, raw).astype(np.int64)
