@@ -261,7 +261,10 @@ class Converter:
             state.expire(int(work.line_at(work.order[first])))
             if len(usable) == 0:
                 continue
-            at = usable + sel.start if isinstance(sel, slice) else sel[usable]
+            if isinstance(sel, slice) and len(usable) == sel.stop - sel.start:
+                at, usable = sel, slice(None)  # every value usable: views, no gathers
+            else:
+                at = usable + sel.start if isinstance(sel, slice) else sel[usable]
             if qc.spike is not None:  # the spike test waits for the next value: rows and lines
                 positions = work.order[at]
                 rows = self.rows_emitted + (positions if row_of is None else row_of[positions])
@@ -321,18 +324,21 @@ class Converter:
             )
         total = n + sum(len(p.positions) for p in derived_parts if p is not None)
         target = row_of[order]
-        derived = np.ones(total, dtype=bool)
-        derived[row_of] = False
-        rid = np.zeros(total, dtype=np.int32)  # derived rows: 0 (no revision) for now
+        derived = np.zeros(total, dtype=bool)
+        rid = np.empty(total, dtype=np.int32)
         rid[target] = work.rid + 1
+        for part in derived_parts:
+            if part is not None:
+                derived[part.rows] = True
+                rid[part.rows] = 0  # no revision
         rows = Rows(
             time_us=np.empty(total, dtype=np.int64),
             line=np.empty(total, dtype=np.int64),
             name=self.rid_name[rid],
-            channel_id=np.full(total, -1, dtype=np.int64),
-            code=np.full(total, -1, dtype=np.int64),
-            gain=np.full(total, -1, dtype=np.int64),
-            volts=np.full(total, np.nan),
+            channel_id=np.empty(total, dtype=np.int64),
+            code=np.empty(total, dtype=np.int64),
+            gain=np.empty(total, dtype=np.int64),
+            volts=np.empty(total),
             value=np.empty(total),
             unit=self.rid_unit[rid],
             flags=np.empty(total, dtype=np.int64),
@@ -348,6 +354,8 @@ class Converter:
             if part is None:
                 continue
             at = part.rows
+            rows.channel_id[at] = rows.code[at] = rows.gain[at] = -1
+            rows.volts[at] = np.nan
             rows.time_us[at] = part.times
             rows.line[at] = part.lines
             rows.name[at] = self.name_index[part.channel.name]

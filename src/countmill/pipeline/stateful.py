@@ -51,6 +51,12 @@ class ClockState:
         else:
             previous[0] = self.previous_us
         step = times - previous
+        if self.previous_us is not None and step.min() > 0:
+            # the common case: every time after the one before, and no gap to look for
+            gaps = np.asarray(max_gap_us) if max_gap_us is not None else None
+            if gaps is None or (gaps.ndim == 0 and (gaps < 0 or step.max() <= gaps)):
+                self.previous_us = int(times[-1])
+                return flags
         flags[has_previous & (step < 0)] |= int(Flag.TIME_OUT_OF_ORDER)
         flags[has_previous & (step == 0)] |= int(Flag.TIME_DUPLICATE)
         if max_gap_us is not None:
