@@ -337,7 +337,10 @@ def tc_vs_linear(folder: Path, records: int, repeat: int) -> dict:
         "seconds": med,
         "linear_us_per_record": linear_us,
         "thermocouple_us_per_record": tc_us,
+        # the extra cost of a thermocouple record over a linear one (maths, cold junction)
         "thermocouple_over_linear": tc_us / linear_us if linear_us > 0 else None,
+        # the whole chunks (cold junction included): what a two-channel logger would see
+        "chunk_with_type_k_over_chunk_with_linear": med["with type K"] / med["with linear"],
     }
 
 
@@ -485,6 +488,8 @@ def main(argv: list[str] | None = None) -> int:
     args.data.mkdir(parents=True, exist_ok=True)
     me = [sys.executable, str(Path(__file__).resolve()), "--child"]
     for n in (lines, 4 * lines):  # generated in a child: this process stays small
+        if not (args.data / f"lines-{n}").exists():
+            print(f"generating {n:,} lines in {args.data} (once; cached) ...", file=sys.stderr)
         run_child(me + ["generate", str(args.data), str(n)])
     files = {n: data_files(args.data, n) for n in (lines, 4 * lines)}
     main_files = files[lines]
@@ -594,7 +599,8 @@ def print_table(r: dict) -> None:
         print(f"{name:<28}{mem[small][name]['peak_rss_mib']:>16.0f}{mem[large][name]['peak_rss_mib']:>18.0f}")
     tc = r["thermocouple_vs_linear"]
     print(f"\nper record in the converter: linear {tc['linear_us_per_record']:.3f} us, type K "
-          f"{tc['thermocouple_us_per_record']:.3f} us")
+          f"{tc['thermocouple_us_per_record']:.3f} us; whole chunk with type K / with linear "
+          f"{tc['chunk_with_type_k_over_chunk_with_linear']:.2f}")
     print("\nratios (target)")
     targets = r["targets"]
     print(f"  convert / transcode            {ratios['convert_over_transcode']:8.2f}   ({targets['convert_over_transcode']})")
