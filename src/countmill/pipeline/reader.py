@@ -255,7 +255,7 @@ class LogReader:
         for attempt, aware in enumerate(kinds):
             try:
                 table = pacsv.read_csv(
-                    io.BytesIO(block),
+                    pa.BufferReader(pa.py_buffer(block)),
                     read_options=pacsv.ReadOptions(column_names=self.columns, use_threads=True, block_size=1 << 20),
                     parse_options=pacsv.ParseOptions(delimiter=self.delimiter, newlines_in_values=False),
                     convert_options=pacsv.ConvertOptions(column_types=self._arrow_types(aware), strings_can_be_null=False, quoted_strings_can_be_null=False),
