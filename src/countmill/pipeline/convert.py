@@ -17,11 +17,12 @@ import numpy as np
 
 from countmill.chanmap.compiled import BEGINNING, ChannelMap, ChannelRevision, DerivedChannel
 from countmill.flags import BAD_MASK, Flag, Quality, combine_quality
+from countmill.pipeline.chunk import ChannelChunk, row_positions
+from countmill.pipeline.front_end import add_limit_flags, adc_volts, amplifier_input, limit_flags, set_flag
 from countmill.pipeline.lookup import LatestValue
 from countmill.pipeline.reader import Records
 from countmill.pipeline.stateful import ClockState, SeriesState
 from countmill.pipeline.timezone import US
-from countmill.sensors.adc import amplifier_input_volts, code_to_volts, valid_code_range
 from countmill.stages.registry import StageContext
 
 COLUMNS = ("time_us", "line", "name", "channel_id", "code", "gain", "volts", "value", "unit", "flags", "evaluated")
@@ -102,7 +103,7 @@ class Converter:
 
     # --- per chunk -------------------------------------------------------------------------
     def convert(self, rec: Records) -> Rows:
-        work = _Chunk.grouped(rec)
+        work = ChannelChunk.grouped(rec)
         for cid in self.cmap.order:
             span = work.spans.get(cid)
             if span is not None:
@@ -112,7 +113,7 @@ class Converter:
                 work.flags[lo:hi] |= int(Flag.UNMAPPED_CHANNEL)
 
         derived_parts = [self._derive(work, d) for d in self.cmap.derived]
-        row_of = _row_positions(len(rec), derived_parts)
+        row_of = row_positions(len(rec), derived_parts)
         extra = np.zeros(len(rec), dtype=np.int64)  # flags of the stateful tests
         for cid, (lo, hi) in work.spans.items():
             if cid in self.cmap.channels:
@@ -126,7 +127,7 @@ class Converter:
         self.rows_emitted += len(rows)
         return rows
 
-    def _convert_channel(self, work: "_Chunk", cid: int, lo: int, hi: int) -> None:
+    def _convert_channel(self, work: "ChannelChunk", cid: int, lo: int, hi: int) -> None:
         revisions = self.cmap.channels[cid]
         if len(revisions) == 1 and revisions[0].valid_from_us == BEGINNING:
             self._convert_revision(work, revisions[0], slice(lo, hi))
@@ -139,13 +140,13 @@ class Converter:
             if len(sel):
                 self._convert_revision(work, rev, sel)
 
-    def _convert_revision(self, work: "_Chunk", rev: ChannelRevision, sel) -> None:
+    def _convert_revision(self, work: "ChannelChunk", rev: ChannelRevision, sel) -> None:
         """Convert the records at ``sel`` (a slice or index array of the grouped chunk)."""
         code = work.code[sel]
         times = work.time_us[sel]
         flags = work.flags[sel].copy()  # the time flags so far
-        at_adc = _adc_volts(code, rev, flags)
-        x = _amplifier_input(at_adc, work.gain[sel], rev, flags)
+        at_adc = adc_volts(code, rev, flags)
+        x = amplifier_input(at_adc, work.gain[sel], rev, flags)
         work.volts[sel] = x
 
         inputs = {}
@@ -158,8 +159,8 @@ class Converter:
                 inputs[need.name] = values
                 missing = np.isnan(values)
                 if missing.any():
-                    _flag(flags, missing & ~np.isnan(x), Flag.INPUT_MISSING)
-                _flag(flags, quality == Quality.SUSPECT, Flag.INPUT_SUSPECT)
+                    set_flag(flags, missing & ~np.isnan(x), Flag.INPUT_MISSING)
+                set_flag(flags, quality == Quality.SUSPECT, Flag.INPUT_SUSPECT)
         context = StageContext(inputs=inputs)
         for step in rev.chain:
             result = step.stage.apply(x, step.params, context)
@@ -173,8 +174,8 @@ class Converter:
             x = np.polynomial.polynomial.polyval(x, rev.calibration.coefficients)
             due = rev.calibration.overdue_from_us
             if due is not None and len(times) and times.max() >= due:
-                _flag(flags, times >= due, Flag.CALIBRATION_OVERDUE)
-        _limit_flags(x, rev.range, rev.expect, flags)
+                set_flag(flags, times >= due, Flag.CALIBRATION_OVERDUE)
+        add_limit_flags(x, rev.range, rev.expect, flags)
         work.value[sel] = x
         work.flags[sel] = flags
         work.rid[sel] = self.rid[id(rev)]
@@ -185,7 +186,7 @@ class Converter:
             q = combine_quality(x[good], flags[good], True)
             self.latest[rev.name].add(work.order[sel][good], times[good], x[good], q)
 
-    def _derive(self, work: "_Chunk", d: DerivedChannel) -> "_DerivedPart | None":
+    def _derive(self, work: "ChannelChunk", d: DerivedChannel) -> "_DerivedPart | None":
         trigger = d.expression.trigger
         trigger_index = self.name_index[trigger]
         span = work.spans.get(self.cmap.ids_by_name.get(trigger, -1))
@@ -225,7 +226,7 @@ class Converter:
         return _DerivedPart(d, pos, result, flags, evaluated, times, work.line_at(pos))
 
     # --- stateful tests: time order, gaps, rate, flat line and spike, per channel ------------
-    def _test_channel(self, work: "_Chunk", cid: int, lo: int, hi: int, row_of, extra: np.ndarray) -> None:
+    def _test_channel(self, work: "ChannelChunk", cid: int, lo: int, hi: int, row_of, extra: np.ndarray) -> None:
         revs = self.cmap.channels[cid]
         if len(revs) == 1 and revs[0].valid_from_us == BEGINNING:
             idx = slice(lo, hi)
@@ -275,7 +276,7 @@ class Converter:
             extra[at] |= found
             self.patches.extend(patches)
 
-    def _test_derived(self, work: "_Chunk", part: "_DerivedPart") -> None:
+    def _test_derived(self, work: "ChannelChunk", part: "_DerivedPart") -> None:
         d = part.channel
         key = ("derived", d.name)
         max_gap = np.full(len(part.positions), _gap_us(d.qc.max_gap), dtype=np.int64)
@@ -296,7 +297,7 @@ class Converter:
         self.patches.extend(patches)
 
     # --- rows in input order -----------------------------------------------------------------
-    def _assemble(self, work: "_Chunk", extra: np.ndarray, row_of, derived_parts) -> Rows:
+    def _assemble(self, work: "ChannelChunk", extra: np.ndarray, row_of, derived_parts) -> Rows:
         rec = work.rec
         n = len(rec)
         order = work.order
@@ -375,69 +376,6 @@ class Converter:
             s.expire(line)
 
 
-class _Chunk:
-    """One chunk laid out channel by channel (stable, so each channel stays in file order).
-
-    ``order[i]`` is the file position of grouped record i; ``spans`` maps each channel id
-    met to its (start, stop) in the grouped arrays. The per-record results are grouped
-    too: ``value``, ``volts``, ``flags`` (of the conversion), ``rid`` (the converting
-    revision's number, -1 for none) and ``usable`` (a value good or suspect).
-    """
-
-    def __init__(self, rec: Records, order: np.ndarray, spans: dict[int, tuple[int, int]]):
-        n = len(rec)
-        self.rec = rec
-        self.order = order
-        self.spans = spans
-        self.time_us = rec.time_us[order]
-        self.code = rec.code[order]
-        self.gain = rec.gain[order]
-        self.value = np.full(n, np.nan)
-        self.volts = np.full(n, np.nan)
-        self.flags = rec.time_flags[order] if rec.time_flags.any() else np.zeros(n, dtype=np.int64)
-        self.rid = np.full(n, -1, dtype=np.int32)
-        self.usable = np.zeros(n, dtype=bool)
-
-    @classmethod
-    def grouped(cls, rec: Records) -> "_Chunk":
-        channel = rec.channel
-        n = len(channel)
-        if n and 0 <= int(channel.min()) and int(channel.max()) < 1 << 16:
-            key = channel.astype(np.uint16)
-            order = np.argsort(key, kind="stable")  # a radix sort for 16-bit keys
-            counts = np.bincount(key)
-            ids = np.flatnonzero(counts)
-            stops = np.cumsum(counts)[ids]
-            starts = stops - counts[ids]
-        else:
-            order = np.argsort(channel, kind="stable")
-            ids, starts = np.unique(channel[order], return_index=True)
-            stops = np.append(starts[1:], n)
-        spans = dict(zip(ids.tolist(), zip(starts.tolist(), stops.tolist())))
-        return cls(rec, order, spans)
-
-    def line_at(self, positions) -> np.ndarray:
-        return self.rec.line[positions]
-
-
-def _row_positions(n: int, derived_parts) -> np.ndarray | None:
-    """Output row of each record when derived rows follow their triggers (None: no derived
-    rows, row = record); also sets each derived part's ``rows``."""
-    parts = [p for p in derived_parts if p is not None]
-    if not parts:
-        return None
-    count = np.zeros(n, dtype=np.int64)
-    for part in parts:
-        count[part.positions] += 1
-    row_of = np.arange(n, dtype=np.int64) + np.cumsum(count) - count
-    taken = np.zeros(n, dtype=np.int64)
-    for part in parts:  # several derived rows after one record: in map order
-        q = part.positions
-        part.rows = row_of[q] + 1 + taken[q]
-        taken[q] += 1
-    return row_of
-
-
 @dataclass
 class _DerivedPart:
     channel: DerivedChannel
@@ -450,62 +388,8 @@ class _DerivedPart:
     rows: np.ndarray | None = None  # rows in the chunk's output
 
 
-def _flag(flags: np.ndarray, mask: np.ndarray, flag: int) -> None:
-    """``flags[mask] |= flag``, in place (nothing to do when no record is hit)."""
-    if mask.any():
-        flags[mask] |= int(flag)
-
-
-def _adc_volts(code: np.ndarray, rev: ChannelRevision, flags: np.ndarray) -> np.ndarray:
-    """Volts at the ADC (NaN for an invalid code); sets the code's rail and range flags."""
-    lowest, highest = valid_code_range(rev.adc.bits, rev.adc.coding)
-    at_adc = code_to_volts(code, bits=rev.adc.bits, span=rev.adc.span, coding=rev.adc.coding)
-    low, high = (int(code.min()), int(code.max())) if len(code) else (lowest + 1, lowest + 1)
-    if low < lowest or high > highest:
-        _flag(flags, (code < lowest) | (code > highest), Flag.INVALID_CODE)
-    if low <= lowest:
-        _flag(flags, code == lowest, Flag.SATURATED_LOW)
-    if high >= highest:
-        _flag(flags, code == highest, Flag.SATURATED_HIGH)
-    return at_adc
-
-
-def _amplifier_input(at_adc: np.ndarray, gain: np.ndarray, rev: ChannelRevision, flags: np.ndarray) -> np.ndarray:
-    """Volts at the amplifier input; flags an unknown gain code."""
-    x = amplifier_input_volts(at_adc, gain, rev.gains)
-    missing = np.isnan(x)
-    if missing.any():
-        _flag(flags, missing & ~np.isnan(at_adc), Flag.UNKNOWN_GAIN)
-    return x
-
-
-def _limit_flags(x: np.ndarray, range_, expect, flags: np.ndarray) -> None:
-    """:func:`limit_flags`, ORed into ``flags`` in place; the bounds are compared only when
-    some value lies beyond them."""
-    if (range_ is None and expect is None) or len(x) == 0:
-        return
-    low, high = np.fmin.reduce(x), np.fmax.reduce(x)  # NaN-blind: NaN is never out of range
-    with np.errstate(invalid="ignore"):
-        if range_ is not None:
-            if low < range_[0]:
-                _flag(flags, x < range_[0], Flag.BELOW_RANGE)
-            if high > range_[1]:
-                _flag(flags, x > range_[1], Flag.ABOVE_RANGE)
-        if expect is not None and (low < expect[0] or high > expect[1]):
-            _flag(flags, (x < expect[0]) | (x > expect[1]), Flag.OUTSIDE_EXPECTED)
-
-
 def _gap_us(max_gap_s: float | None) -> int:
     return -1 if max_gap_s is None else round(max_gap_s * US)
 
 
-def limit_flags(x: np.ndarray, range_: tuple[float, float] | None, expect: tuple[float, float] | None) -> np.ndarray:
-    """Gross range test: outside ``range`` is bad, outside ``expect`` is suspect (QARTOD)."""
-    flags = np.zeros(len(x), dtype=np.int64)
-    with np.errstate(invalid="ignore"):
-        if range_ is not None:
-            flags[x < range_[0]] |= int(Flag.BELOW_RANGE)
-            flags[x > range_[1]] |= int(Flag.ABOVE_RANGE)
-        if expect is not None:
-            flags[(x < expect[0]) | (x > expect[1])] |= int(Flag.OUTSIDE_EXPECTED)
-    return flags
+__all__ = ["Converter", "Rows", "limit_flags"]
