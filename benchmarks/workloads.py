@@ -1,0 +1,313 @@
+"""What ``benchmarks/run.py`` times: the generated logs and the steps run on them.
+
+* the logs: a seeded day of the demo brewhouse logger (``demo_logs/make_day.py``, 0.01 s
+  scan, no planted faults) as CSV, and the same samples as binary records;
+* the steps: ``countmill convert``, the plain Arrow transcode (the floor), the readers
+  alone, the per-row pandas script a user would otherwise write, and the converter's cost
+  per record of a thermocouple channel against a linear one.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import importlib.util
+import re
+import statistics
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+MAP = ROOT / "channel_maps" / "brewhouse.toml"
+DATE = dt.date(2026, 11, 3)
+SEED = 20261103
+SCAN_S = 0.01
+
+# --- the data -------------------------------------------------------------------------------
+
+BINARY_INPUT = """[input]
+format = "binary"
+record = [
+  { name = "time", dtype = "int64" },     # ms since local midnight 1970-01-01 (the logger's clock)
+  { name = "channel", dtype = "uint16" },
+  { name = "code", dtype = "int32" },
+  { name = "gain", dtype = "uint8" },
+  { name = "_status", dtype = "uint8" },
+]
+time_unit = "ms"
+epoch = 1970-01-01T00:00:00
+"""
+
+BINARY_DTYPE = np.dtype({"names": ["time", "channel", "code", "gain", "_status"],
+                         "formats": ["<i8", "<u2", "<i4", "<u1", "<u1"],
+                         "offsets": [0, 8, 10, 14, 15], "itemsize": 16})
+
+
+def _make_day_module():
+    spec = importlib.util.spec_from_file_location("countmill_demo_make_day", ROOT / "demo_logs" / "make_day.py")
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[spec.name] = module
+    spec.loader.exec_module(module)
+    return module
+
+
+def binary_map(folder: Path) -> Path:
+    """The demo map with its ``[input]`` table swapped for the binary record layout."""
+    text = MAP.read_text()
+    swapped, count = re.subn(r"(?ms)^\[input\]\n.*?(?=^\[)", BINARY_INPUT + "\n", text, count=1)
+    if count != 1:
+        raise SystemExit(f"{MAP}: no [input] table to replace")
+    path = folder / "brewhouse-binary.toml"
+    if not path.exists() or path.read_text() != swapped:
+        path.write_text(swapped)
+    return path
+
+
+def data_files(folder: Path, lines: int) -> dict[str, Path]:
+    """The CSV and binary logs of ``lines`` records (generated once, then cached)."""
+    target = folder / f"lines-{lines}"
+    csv = target / f"brewhouse-{DATE.isoformat()}.csv"
+    binary = target / f"brewhouse-{DATE.isoformat()}.bin"
+    if not (csv.exists() and binary.exists()):
+        target.mkdir(parents=True, exist_ok=True)
+        md = _make_day_module()
+        print(f"generating {lines:,} lines in {target} ...", file=sys.stderr)
+        made = md.make_day(target, DATE, seed=SEED, scan=SCAN_S, faults=False, max_lines=lines)
+        if Path(made) != csv:
+            Path(made).replace(csv)
+        rec = md.simulate_day(DATE, seed=SEED, scan=SCAN_S, faults=False, max_lines=lines)
+        write_binary(binary, rec["ms"], rec["channel"], rec["code"], rec["gain"])
+    return {"csv": csv, "binary": binary}
+
+
+def write_binary(path: Path, ms_of_day, channel, code, gain) -> None:
+    """Binary records of the same samples as the CSV (times as local wall-clock ms)."""
+    day_ms = (dt.datetime.combine(DATE, dt.time()) - dt.datetime(1970, 1, 1)) // dt.timedelta(milliseconds=1)
+    tmp = path.with_name(path.name + ".part")
+    with open(tmp, "wb") as fh:
+        step = 1 << 21
+        for a in range(0, len(ms_of_day), step):
+            block = np.zeros(min(step, len(ms_of_day) - a), dtype=BINARY_DTYPE)
+            block["time"] = day_ms + np.asarray(ms_of_day[a:a + step], dtype=np.int64)
+            block["channel"] = channel[a:a + step]
+            block["code"] = code[a:a + step]
+            block["gain"] = gain[a:a + step]
+            block.tofile(fh)
+    tmp.replace(path)
+
+
+# --- the steps ------------------------------------------------------------------------------
+
+def step_convert(raw: Path, cmap, out: Path) -> int:
+    from countmill.convert import convert_file
+
+    return convert_file(raw, cmap, out).rows
+
+
+def step_transcode(raw: Path, out: Path) -> int:
+    """The floor: stream the CSV through Arrow's parser into a Parquet writer, nothing else."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+    import pyarrow.parquet as pq
+
+    preamble = 0
+    with open(raw, "rb") as fh:
+        for line in fh:
+            if line.startswith(b"#"):
+                preamble += 1
+                continue
+            preamble += 1  # the header line
+            break
+    read = pacsv.ReadOptions(skip_rows=preamble, column_names=["time", "channel", "code", "gain"])
+    types = pacsv.ConvertOptions(column_types={"time": pa.timestamp("ms"), "channel": pa.int32(),
+                                               "code": pa.int32(), "gain": pa.int16()})
+    rows = 0
+    with pacsv.open_csv(raw, read_options=read, convert_options=types) as reader:
+        with pq.ParquetWriter(out, reader.schema, compression="zstd") as writer:
+            for batch in reader:
+                writer.write_batch(batch)
+                rows += batch.num_rows
+    return rows
+
+
+def step_read(raw: Path, spec, timezone: str) -> int:
+    from countmill.pipeline.binary_reader import open_log
+
+    records = 0
+    with open_log(raw, spec, timezone) as reader:
+        for block in reader.blocks():
+            records += len(block)
+    return records
+
+
+# --- the per-row script a user would otherwise write -----------------------------------------
+
+def per_row_params(map_path: Path) -> dict:
+    """Per channel: ADC, gains and a simplified chain, from the map (no quality tests)."""
+    import tomllib
+
+    doc = tomllib.loads(map_path.read_text())
+    params = {}
+    for entry in doc["channel"]:
+        if entry["id"] in params:
+            continue
+        adc = entry.get("adc", doc["adc"])
+        gains = {int(k): float(v) for k, v in entry.get("gains", doc["gains"]).items()}
+        stages = [s["stage"] for s in entry["chain"]]
+        p = {"bits": adc["bits"], "lo": adc["span"][0], "hi": adc["span"][1], "twos": adc.get("coding") == "twos",
+             "gains": gains, "kind": "linear", "slope": 1.0, "intercept": 0.0}
+        first = entry["chain"][0]
+        if stages == ["linear"]:
+            p.update(slope=first["slope"], intercept=first["intercept"])
+        elif stages == ["current_excitation", "rtd"]:
+            p.update(kind="rtd", amps=first["amps"], lead=first.get("lead_ohms", 0.0), r0=entry["chain"][1].get("r0", 100.0))
+        elif stages[0] == "divider" and "r25" in entry["chain"][1]:
+            p.update(kind="ntc", exc=first["excitation"], rfix=first["r_fixed"], r25=entry["chain"][1]["r25"],
+                     beta=entry["chain"][1]["beta"])
+        elif stages == ["current_loop"]:
+            p.update(kind="loop", shunt=first["shunt"], low=first["low"], high=first["high"])
+        params[entry["id"]] = p
+    return params
+
+
+def per_row_script(csv_slice: Path, params: dict, out: Path) -> int:
+    """What a user writes without countmill: read, one Python call per row, write."""
+    import math
+
+    import pandas as pd
+
+    a, b = 3.9083e-3, -5.775e-7  # IEC 60751 coefficients (0 degC and up)
+
+    def convert_row(row):
+        p = params.get(int(row["channel"]))
+        if p is None:
+            return float("nan")
+        lsb = (p["hi"] - p["lo"]) / 2 ** p["bits"]
+        base = (p["lo"] + p["hi"]) / 2 if p["twos"] else p["lo"]
+        volts = (base + int(row["code"]) * lsb) / p["gains"].get(int(row["gain"]), float("nan"))
+        kind = p["kind"]
+        if kind == "linear":
+            return p["slope"] * volts + p["intercept"]
+        if kind == "rtd":
+            ratio = (volts / p["amps"] - p["lead"]) / p["r0"]
+            disc = a * a - 4 * b * (1 - ratio)
+            return (-a + math.sqrt(disc)) / (2 * b) if disc >= 0 else float("nan")
+        if kind == "ntc":
+            if not 0 < volts < p["exc"]:
+                return float("nan")
+            r = p["rfix"] * volts / (p["exc"] - volts)
+            return 1 / (1 / 298.15 + math.log(r / p["r25"]) / p["beta"]) - 273.15
+        if kind == "loop":
+            ma = volts / p["shunt"] * 1000
+            return p["low"] + (ma - 4) / 16 * (p["high"] - p["low"])
+        return volts
+
+    df = pd.read_csv(csv_slice, comment="#")
+    df["time"] = pd.to_datetime(df["time"]).dt.tz_localize("Europe/Dublin", ambiguous="NaT", nonexistent="NaT")
+    df["value"] = df.apply(convert_row, axis=1)
+    df.to_parquet(out)
+    return len(df)
+
+
+def write_slice(csv: Path, rows: int, target: Path) -> Path:
+    with open(csv, "rb") as src, open(target, "wb") as dst:
+        taken = -1  # the header line comes first
+        for line in src:
+            if line.startswith(b"#"):
+                continue
+            dst.write(line)
+            taken += 1
+            if taken >= rows:
+                break
+    return target
+
+
+# --- thermocouple against linear ----------------------------------------------------------------
+
+TC_MAP = """[map]
+name = "tc-vs-linear"
+timezone = "UTC"
+[adc]
+bits = 16
+span = [-5.0, 5.0]
+coding = "twos"
+[gains]
+0 = 1
+3 = 1000
+[[channel]]
+id = 0
+name = "junction"
+unit = "degC"
+chain = [{ stage = "linear", slope = 100.0, intercept = -50.0 }]
+[[channel]]
+id = 1
+name = "linear_probe"
+unit = "degC"
+chain = [{ stage = "linear", slope = 100.0, intercept = 0.0 }]
+[[channel]]
+id = 2
+name = "type_k_probe"
+unit = "degC"
+chain = [{ stage = "thermocouple", type = "K", cold_junction = "junction" }]
+"""
+
+
+def tc_vs_linear(folder: Path, records: int, repeat: int) -> dict:
+    """Converter cost per record of a type K channel and of a linear channel.
+
+    Three chunks with the same times: the cold-junction channel alone, with a linear
+    channel interleaved, and with a thermocouple channel interleaved; the extra time per
+    extra record is the channel's cost. ``records`` per chunk: by default each channel has
+    as many records as one channel of the demo map has in a default chunk (250,000 records
+    over 19 channels), the array length the converter works on in the main benchmark.
+    """
+    from countmill.chanmap import load_map
+    from countmill.pipeline.convert import Converter
+    from countmill.pipeline.reader import Records
+
+    path = folder / "tc-vs-linear.toml"
+    path.write_text(TC_MAP)
+    cmap = load_map(path)
+    rng = np.random.default_rng(SEED)
+    half = records // 2
+    t = 1_790_000_000_000_000 + np.arange(half, dtype=np.int64) * 10_000
+    junction_code = np.full(half, 4600) + rng.integers(-3, 4, half)      # about 20 degC
+    other_code = (2000 + 1500 * np.sin(np.arange(half) / 5000)).astype(np.int64) + rng.integers(-3, 4, half)
+
+    def chunk(channel_id: int | None, gain: int) -> Records:
+        if channel_id is None:
+            n = half
+            return Records(np.arange(1, n + 1), t.copy(), np.zeros(n, np.int64), np.zeros(n, np.int64),
+                           junction_code.astype(np.int64), np.zeros(n, np.int64))
+        n = 2 * half
+        time = np.repeat(t, 2) + np.tile([0, 5_000], half)
+        channel = np.tile([0, channel_id], half)
+        code = np.empty(n, np.int64)
+        code[0::2], code[1::2] = junction_code, other_code
+        gains = np.tile([0, gain], half)
+        return Records(np.arange(1, n + 1), time, np.zeros(n, np.int64), channel.astype(np.int64), code, gains.astype(np.int64))
+
+    chunks = {"junction only": chunk(None, 0), "with linear": chunk(1, 0), "with type K": chunk(2, 3)}
+    times: dict[str, list[float]] = {k: [] for k in chunks}
+    rounds = max(repeat, 3) * max(3, 200_000 // max(half, 1))
+    for _ in range(rounds):
+        for name, rec in chunks.items():
+            conv = Converter(cmap)
+            start = time.perf_counter()
+            conv.convert(rec)
+            times[name].append(time.perf_counter() - start)
+    med = {k: statistics.median(v) for k, v in times.items()}
+    linear_us = (med["with linear"] - med["junction only"]) / half * 1e6
+    tc_us = (med["with type K"] - med["junction only"]) / half * 1e6
+    return {
+        "records_per_channel": half,
+        "seconds": med,
+        "linear_us_per_record": linear_us,
+        "thermocouple_us_per_record": tc_us,
+        # the extra cost of a thermocouple record over a linear one (maths, cold junction)
+        "thermocouple_over_linear": tc_us / linear_us if linear_us > 0 else None,
+        # the whole chunks (cold junction included): what a two-channel logger would see
+        "chunk_with_type_k_over_chunk_with_linear": med["with type K"] / med["with linear"],
+    }
