@@ -19,7 +19,7 @@ from countmill.flags import Flag, Quality, flag_name
 from countmill.pipeline.convert import Converter, Rows
 from countmill.pipeline.output import CsvSink, ParquetSink, RejectsSink
 from countmill.pipeline.binary_reader import open_log
-from countmill.pipeline.reader import Records, file_sha256
+from countmill.pipeline.reader import file_sha256
 from countmill.pipeline.stream import BackgroundWriter, InThread, Prefetch
 
 QUALITY_LEVELS = tuple(int(q) for q in Quality)

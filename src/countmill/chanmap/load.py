@@ -28,7 +28,7 @@ from countmill.chanmap.compiled import (
     QcSettings,
 )
 from countmill.chanmap.expression import ExpressionError, parse_expression
-from countmill.chanmap.models import AdcSpec, CalibrationSpec, ChannelSpec, DerivedSpec, MapFile
+from countmill.chanmap.models import CalibrationSpec, ChannelSpec, DerivedSpec, MapFile
 from countmill.errors import MapError
 from countmill.stages.registry import all_stages
 from countmill.units import affine_conversion, parse_unit, same_dimension

@@ -26,16 +26,14 @@ reject's text is the record's bytes in hexadecimal. A file may be gzip-compresse
 from __future__ import annotations
 
 import datetime as dt
-import gzip
-import zlib
 from pathlib import Path
-from typing import BinaryIO, Iterator
+from typing import Iterator
 
 import numpy as np
 
 from countmill.chanmap.models import BINARY_DTYPES, InputSpec
 from countmill.errors import InputError
-from countmill.pipeline.reader import FIELD_LIMITS, GZIP_MAGIC, CountingReader, LogReader, Records, Reject
+from countmill.pipeline.reader import FIELD_LIMITS, LogReader, RawSource, Records, Reject
 from countmill.pipeline.timezone import US, LocalClock
 
 #: microseconds per unit of the time field
@@ -71,7 +69,7 @@ def _epoch(spec: InputSpec) -> tuple[int, bool]:
     return (delta.days * 86_400 + delta.seconds) * US + delta.microseconds, naive
 
 
-class BinaryLogReader:
+class BinaryLogReader(RawSource):
     """Iterates over :class:`Records` of a binary log, ``block_records`` records at a time.
 
     Same interface as :class:`~countmill.pipeline.reader.LogReader`: ``blocks()``,
@@ -79,7 +77,6 @@ class BinaryLogReader:
     """
 
     def __init__(self, path: str | Path, spec: InputSpec, timezone: str, block_records: int = 250_000):
-        self.path = Path(path)
         self.spec = spec
         self.dtype = record_dtype(spec)
         self.record_bytes = self.dtype.itemsize
@@ -88,40 +85,14 @@ class BinaryLogReader:
         self.epoch_us, self.epoch_is_wall = _epoch(spec)
         self.data_lines = 0
         self._position = 0  # bytes read of a plain file
-        try:
-            self._file = open(self.path, "rb")
-        except OSError as exc:
-            raise InputError(f"{self.path}: cannot open: {exc.strerror}") from None
-        self.total_bytes = self.path.stat().st_size
-        self._counter = CountingReader(self._file)
-        magic = self._file.read(2)
-        self._file.seek(0)
-        self.compressed = magic == GZIP_MAGIC
-        if self.path.suffix.lower() == ".gz" and not self.compressed:
-            self._file.close()
-            raise InputError(f"{self.path}: named .gz but not gzip data (corrupt or mislabelled)")
-        self._stream: BinaryIO = gzip.GzipFile(fileobj=self._counter) if self.compressed else self._file
+        self._open(path, buffered=False)
 
     @property
     def bytes_read(self) -> int:
+        # a plain file is read with numpy straight from the file object, past the counter
         return self._counter.bytes_read if self.compressed else self._position
 
-    def close(self) -> None:
-        self._file.close()
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        self.close()
-
     # --- reading -------------------------------------------------------------------------
-    def _read(self, n: int) -> bytes:
-        try:
-            return self._stream.read(n)
-        except (OSError, EOFError, zlib.error) as exc:
-            raise InputError(f"{self.path}: the compressed data is corrupt or truncated ({exc})") from None
-
     def _raw_blocks(self) -> Iterator[tuple[str, np.ndarray | bytes]]:
         """("records", structured array) blocks; at the end maybe ("partial", bytes), or
         ("header", bytes) when the file ends inside its header."""

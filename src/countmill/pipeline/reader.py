@@ -99,43 +99,30 @@ def file_sha256(path: str | Path) -> str:
     return digest.hexdigest()
 
 
-class LogReader:
-    """Iterates over :class:`Records` of a raw log, one block at a time."""
+class RawSource:
+    """A raw log opened for reading: plain or gzip (told by its first bytes, a ``.gz`` name
+    must hold gzip), its stored bytes counted for progress. Base of both readers."""
 
-    def __init__(self, path: str | Path, spec: InputSpec, timezone: str, block_bytes: int = 4 << 20,
-                 block_lines: int | None = None):
+    def _open(self, path: str | Path, *, buffered: bool) -> None:
         self.path = Path(path)
-        self.spec = spec
-        self.columns = list(spec.columns)
-        self.clock = LocalClock(timezone)
-        self.block_bytes = block_bytes
-        #: when given, blocks are sized to hold about this many lines (from the length of the
-        #: lines read so far), so that a chunk of ``block_lines`` rows is one block, unsplit
-        self.block_lines = block_lines
-        self._bytes_parsed = 0
-        self.delimiter = spec.delimiter
-        self.lines_seen = 0
-        self.data_lines = 0
-        self.header_line: int | None = None
-        self._first_data_pending = True
-        self._aware_first = False  # whether the last fast block had times with an offset
         try:
             self._file = open(self.path, "rb")
         except OSError as exc:
             raise InputError(f"{self.path}: cannot open: {exc.strerror}") from None
         self.total_bytes = self.path.stat().st_size
-        self._hasher = CountingReader(self._file)
-        buffered = io.BufferedReader(self._hasher, buffer_size=1 << 20)
-        magic = buffered.peek(2)[:2]
+        self._counter = CountingReader(self._file)
+        magic = self._file.read(2)
+        self._file.seek(0)
         self.compressed = magic == GZIP_MAGIC
         if self.path.suffix.lower() == ".gz" and not self.compressed:
             self._file.close()
             raise InputError(f"{self.path}: named .gz but not gzip data (corrupt or mislabelled)")
-        self._stream: BinaryIO = gzip.GzipFile(fileobj=buffered) if self.compressed else buffered
+        source: BinaryIO = io.BufferedReader(self._counter, buffer_size=1 << 20) if buffered else self._counter
+        self._stream: BinaryIO = gzip.GzipFile(fileobj=source) if self.compressed else source
 
     @property
     def bytes_read(self) -> int:
-        return self._hasher.bytes_read
+        return self._counter.bytes_read
 
     def close(self) -> None:
         self._file.close()
@@ -151,6 +138,28 @@ class LogReader:
             return self._stream.read(n)
         except (OSError, EOFError, zlib.error) as exc:
             raise InputError(f"{self.path}: the compressed data is corrupt or truncated ({exc})") from None
+
+
+class LogReader(RawSource):
+    """Iterates over :class:`Records` of a raw log, one block at a time."""
+
+    def __init__(self, path: str | Path, spec: InputSpec, timezone: str, block_bytes: int = 4 << 20,
+                 block_lines: int | None = None):
+        self.spec = spec
+        self.columns = list(spec.columns)
+        self.clock = LocalClock(timezone)
+        self.block_bytes = block_bytes
+        #: when given, blocks are sized to hold about this many lines (from the length of the
+        #: lines read so far), so that a chunk of ``block_lines`` rows is one block, unsplit
+        self.block_lines = block_lines
+        self._bytes_parsed = 0
+        self.delimiter = spec.delimiter
+        self.lines_seen = 0
+        self.data_lines = 0
+        self.header_line: int | None = None
+        self._first_data_pending = True
+        self._aware_first = False  # whether the last fast block had times with an offset
+        self._open(path, buffered=True)
 
     def blocks(self) -> Iterator[Records]:
         leftover = b""
