@@ -9,7 +9,6 @@ file publishes (for decoding ``flags``). Invented numbers; ADC 12-bit straight b
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
