@@ -254,14 +254,17 @@ chain = [{ stage = "thermocouple", type = "K", cold_junction = "junction" }]
 """
 
 
-def tc_vs_linear(folder: Path, records: int, repeat: int) -> dict:
+def tc_vs_linear(folder: Path, records: int, repeat: int, stream: int = 6) -> dict:
     """Converter cost per record of a type K channel and of a linear channel.
 
-    Three chunks with the same times: the cold-junction channel alone, with a linear
-    channel interleaved, and with a thermocouple channel interleaved; the extra time per
-    extra record is the channel's cost. ``records`` per chunk: by default each channel has
-    as many records as one channel of the demo map has in a default chunk (250,000 records
-    over 19 channels), the array length the converter works on in the main benchmark.
+    Three streams of ``stream`` consecutive chunks with the same times: the cold-junction
+    channel alone, with a linear channel interleaved, and with a thermocouple channel
+    interleaved; the extra time per extra record is the channel's cost. Each stream runs
+    through one converter, as a file does (state carried from chunk to chunk, the memory
+    allocator in the steady state of that mix), and the streams are timed in turn, round
+    after round. ``records`` per chunk: by default each channel has as many records as one
+    channel of the demo map has in a default chunk (250,000 records over 19 channels), the
+    array length the converter works on in the main benchmark.
     """
     from countmill.chanmap import load_map
     from countmill.pipeline.convert import Converter
@@ -272,38 +275,49 @@ def tc_vs_linear(folder: Path, records: int, repeat: int) -> dict:
     cmap = load_map(path)
     rng = np.random.default_rng(SEED)
     half = records // 2
-    t = 1_790_000_000_000_000 + np.arange(half, dtype=np.int64) * 10_000
-    junction_code = np.full(half, 4600) + rng.integers(-3, 4, half)      # about 20 degC
-    other_code = (2000 + 1500 * np.sin(np.arange(half) / 5000)).astype(np.int64) + rng.integers(-3, 4, half)
+    total = half * stream
+    t_all = 1_790_000_000_000_000 + np.arange(total, dtype=np.int64) * 10_000
+    junction_all = np.full(total, 4600) + rng.integers(-3, 4, total)      # about 20 degC
+    other_all = (2000 + 1500 * np.sin(np.arange(total) / 5000)).astype(np.int64) + rng.integers(-3, 4, total)
 
-    def chunk(channel_id: int | None, gain: int) -> Records:
+    def chunk(channel_id: int | None, gain: int, k: int) -> Records:
+        part = slice(k * half, (k + 1) * half)
+        t, junction_code, other_code = t_all[part], junction_all[part], other_all[part]
         if channel_id is None:
-            n = half
-            return Records(np.arange(1, n + 1), t.copy(), np.zeros(n, np.int64), np.zeros(n, np.int64),
-                           junction_code.astype(np.int64), np.zeros(n, np.int64))
+            first = 1 + k * half
+            return Records(np.arange(first, first + half), t.copy(), np.zeros(half, np.int64),
+                           np.zeros(half, np.int64), junction_code.astype(np.int64), np.zeros(half, np.int64))
         n = 2 * half
-        time = np.repeat(t, 2) + np.tile([0, 5_000], half)
+        first = 1 + k * n
+        time_us = np.repeat(t, 2) + np.tile([0, 5_000], half)
         channel = np.tile([0, channel_id], half)
         code = np.empty(n, np.int64)
         code[0::2], code[1::2] = junction_code, other_code
         gains = np.tile([0, gain], half)
-        return Records(np.arange(1, n + 1), time, np.zeros(n, np.int64), channel.astype(np.int64), code, gains.astype(np.int64))
+        return Records(np.arange(first, first + n), time_us, np.zeros(n, np.int64), channel.astype(np.int64), code,
+                       gains.astype(np.int64))
 
-    chunks = {"junction only": chunk(None, 0), "with linear": chunk(1, 0), "with type K": chunk(2, 3)}
-    times: dict[str, list[float]] = {k: [] for k in chunks}
-    rounds = max(repeat, 3) * max(3, 200_000 // max(half, 1))
+    streams = {
+        "junction only": [chunk(None, 0, k) for k in range(stream)],
+        "with linear": [chunk(1, 0, k) for k in range(stream)],
+        "with type K": [chunk(2, 3, k) for k in range(stream)],
+    }
+    times: dict[str, list[float]] = {k: [] for k in streams}
+    rounds = max(repeat, 3) * max(3, 200_000 // max(half * stream, 1))
     for _ in range(rounds):
-        for name, rec in chunks.items():
+        for name, chunks in streams.items():
             conv = Converter(cmap)
             start = time.perf_counter()
-            conv.convert(rec)
-            times[name].append(time.perf_counter() - start)
+            for rec in chunks:
+                conv.convert(rec)
+            times[name].append((time.perf_counter() - start) / stream)
     med = {k: statistics.median(v) for k, v in times.items()}
     linear_us = (med["with linear"] - med["junction only"]) / half * 1e6
     tc_us = (med["with type K"] - med["junction only"]) / half * 1e6
     return {
         "records_per_channel": half,
-        "seconds": med,
+        "chunks_per_stream": stream,
+        "seconds_per_chunk": med,
         "linear_us_per_record": linear_us,
         "thermocouple_us_per_record": tc_us,
         # the extra cost of a thermocouple record over a linear one (maths, cold junction)

@@ -160,7 +160,8 @@ class Converter:
                 missing = np.isnan(values)
                 if missing.any():
                     set_flag(flags, missing & ~np.isnan(x), Flag.INPUT_MISSING)
-                set_flag(flags, quality == Quality.SUSPECT, Flag.INPUT_SUSPECT)
+                if quality is not None:
+                    set_flag(flags, quality == Quality.SUSPECT, Flag.INPUT_SUSPECT)
         context = StageContext(inputs=inputs)
         for step in rev.chain:
             result = step.stage.apply(x, step.params, context)
@@ -210,6 +211,8 @@ class Converter:
                 values[~ok] = np.nan
             else:
                 values, quality = self.latest[input_name].lookup(pos, times, round(d.max_age_s * US))
+                if quality is None:  # every value found is good
+                    quality = np.full(len(pos), Quality.GOOD, dtype=np.int8)
             env[input_name] = values
             worst = np.maximum(worst, np.where(quality == Quality.MISSING, worst, quality))
         with np.errstate(all="ignore"):

@@ -86,6 +86,8 @@ class LatestValue:
     quality: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int8))
     _newest_so_far: np.ndarray | None = None  # running maximum of ``times``
     _runs: np.ndarray | None = None
+    _ordered: bool | None = None  # this chunk's times never decrease, from the history's newest on
+    _all_good: bool | None = None  # every value of this chunk is good (none suspect)
 
     def add(self, positions, times, values, quality) -> None:
         """Record this chunk's usable values of the channel."""
@@ -98,24 +100,36 @@ class LatestValue:
             self.quality = np.concatenate([self.quality, quality])[order]
         else:
             self.positions, self.times, self.values, self.quality = positions, times, values, quality
-        self._newest_so_far = self._runs = None
+        self._newest_so_far = self._runs = self._ordered = self._all_good = None
 
     def lookup(self, positions: np.ndarray, times: np.ndarray, max_age_us: int):
-        """Values (NaN where none) and their quality for records at ``positions``/``times``."""
+        """Values (NaN where none) and their quality for records at ``positions``/``times``.
+
+        The quality is None when every value found is good (the common case: the caller
+        then has no suspect input to flag, and no array is made for it).
+        """
         if (not self.history and len(self.times) == 0) or len(positions) == 0:
             return np.full(len(positions), np.nan), np.full(len(positions), Quality.MISSING, dtype=np.int8)
         if self._newest_so_far is None:
             self._newest_so_far = np.maximum.accumulate(self.times) if len(self.times) else _empty()
+            self._ordered = bool(len(self.times)) and self.times[0] >= self.hist_newest and bool(
+                np.all(self._newest_so_far == self.times))
+            self._all_good = bool(np.all(self.quality == Quality.GOOD))
         # the last usable record on an earlier line: in this chunk (k >= 0) or the last
         # value of the history; and the newest time reached up to it
         k = np.searchsorted(self.positions, positions, side="left") - 1
         if len(self.times) and k.min() >= 0:  # all in this chunk
-            newest = np.maximum(self._newest_so_far[k], self.hist_newest)
             src_t = self.times[k]
-            lo = np.maximum(times - max_age_us, newest - HISTORY_SECONDS * _US)
-            direct = (src_t <= times) & (src_t >= lo)
+            if self._ordered:
+                # no clock step back: the newest time reached is the value's own time,
+                # which the history window (newest - HISTORY_SECONDS) always admits
+                direct = (src_t <= times) & (src_t >= times - max_age_us)
+            else:
+                newest = np.maximum(self._newest_so_far[k], self.hist_newest)
+                lo = np.maximum(times - max_age_us, newest - HISTORY_SECONDS * _US)
+                direct = (src_t <= times) & (src_t >= lo)
             if direct.all():  # the common case: the last earlier value is the one
-                return self.values[k], self.quality[k]
+                return self.values[k], (None if self._all_good else self.quality[k])
         out_v = np.full(len(positions), np.nan)
         out_q = np.full(len(positions), Quality.MISSING, dtype=np.int8)
         here = k >= 0
@@ -173,4 +187,4 @@ class LatestValue:
                 self.history.pop(0)
         self.positions, self.times = _empty(), _empty()
         self.values, self.quality = np.zeros(0), np.zeros(0, dtype=np.int8)
-        self._newest_so_far = self._runs = None
+        self._newest_so_far = self._runs = self._ordered = self._all_good = None

@@ -33,6 +33,7 @@ from pydantic import Field, field_validator, model_validator
 
 from countmill.flags import Flag
 from countmill.sensors.thermocouple import (
+    cold_junction_compensated_temperature,
     reference_range,
     thermocouple_emf,
     thermocouple_temperature,
@@ -92,12 +93,13 @@ def _apply(x: np.ndarray, params: ThermocoupleParams, ctx: StageContext) -> Stag
             ) from None
     else:
         t_cj = np.float64(params.cold_junction)
-    e_cj = np.asarray(thermocouple_emf(t_cj, type=params.type))
-    e_hot = emf + e_cj
-    t = np.asarray(thermocouple_temperature(e_hot, type=params.type), dtype=np.float64)
+    t = np.asarray(cold_junction_compensated_temperature(emf, t_cj, type=params.type), dtype=np.float64)
     if t.shape == emf.shape and not np.isnan(t).any():
         # outside the model means no temperature: none here
         return StageResult(values=t, flags=None)
+    # some record has no temperature: tell a NaN input from a value outside the model
+    e_cj = np.asarray(thermocouple_emf(t_cj, type=params.type))
+    e_hot = emf + e_cj
     outside = (~np.isnan(t_cj) & np.isnan(e_cj)) | (~np.isnan(e_hot) & np.isnan(t))
     t = np.broadcast_to(t, emf.shape).copy()
     outside = np.broadcast_to(outside, emf.shape)
