@@ -133,6 +133,7 @@ class _Tally:
         self.flag_events: dict[tuple[int, str], list[int]] = {}
 
     def add(self, rows: Rows) -> None:
+        channels = len(self.names) + 1  # the last one: rows of no channel (unmapped)
         index = np.where(rows.name < 0, len(self.names), rows.name)
         # np.bincount on a combined key is much faster than np.add.at
         key = index.astype(np.int64) * 10 + rows.quality
@@ -146,13 +147,15 @@ class _Tally:
             if not present & int(flag):
                 continue
             hit = np.flatnonzero(flags & int(flag))
-            # per channel: count, first and last time, from one sort of the hits by channel
-            by_channel = np.argsort(where[hit], kind="stable")
-            channel, t = where[hit][by_channel], times[hit][by_channel]
-            starts = np.flatnonzero(np.concatenate(([True], channel[1:] != channel[:-1])))
-            counts = np.diff(np.append(starts, len(channel)))
-            firsts, lasts = np.minimum.reduceat(t, starts), np.maximum.reduceat(t, starts)
-            for c, k, first, last in zip(channel[starts].tolist(), counts.tolist(), firsts.tolist(), lasts.tolist()):
+            channel, t = where[hit], times[hit]
+            # per channel: count, first and last time (a few channels: unbuffered min/max)
+            counts = np.bincount(channel, minlength=channels)
+            firsts = np.full(channels, np.iinfo(np.int64).max)
+            lasts = np.full(channels, np.iinfo(np.int64).min)
+            np.minimum.at(firsts, channel, t)
+            np.maximum.at(lasts, channel, t)
+            for c in np.flatnonzero(counts).tolist():
+                k, first, last = int(counts[c]), int(firsts[c]), int(lasts[c])
                 entry = self.flag_events.setdefault((c, flag_name(flag)), [0, first, last])
                 entry[0] += k
                 entry[1] = min(entry[1], first)

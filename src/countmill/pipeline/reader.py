@@ -171,17 +171,19 @@ class LogReader(RawSource):
                 if data.startswith(BOM):
                     data = data[len(BOM):]
             eof = not data
-            buf = leftover + data
-            if not buf:
-                break
             if eof:
-                block, leftover = buf, b""
+                if not leftover:
+                    break
+                block, leftover = leftover, b""
             else:
-                cut = buf.rfind(b"\n")
+                cut = data.rfind(b"\n")
                 if cut < 0:
-                    leftover = buf
+                    leftover += data
                     continue
-                block, leftover = buf[: cut + 1], buf[cut + 1:]
+                # one copy of the block's bytes (the line cut off last time, then this read up
+                # to its last line ending); the rest waits for the next read
+                block = leftover + memoryview(data)[: cut + 1] if leftover else data[: cut + 1]
+                leftover = data[cut + 1:]
             self._bytes_parsed += len(block)
             records = self._parse_block(block, last=eof)
             yield records
@@ -305,13 +307,16 @@ class LogReader(RawSource):
         else:
             cols = table_or_columns
         gain = cols.get("gain", np.zeros(n, dtype=np.int64))
-        utc = time_us.copy()
-        flags = np.zeros(n, dtype=np.int64)
-        if naive_mask.any():
-            idx = np.flatnonzero(naive_mask)
-            local_utc, local_flags = self.clock.to_utc(time_us[idx])
-            utc[idx] = local_utc
-            flags[idx] = local_flags
+        if n and naive_mask.all():  # the usual file: every time is local wall-clock time
+            utc, flags = self.clock.to_utc(time_us)
+        else:
+            utc = time_us.copy()
+            flags = np.zeros(n, dtype=np.int64)
+            if naive_mask.any():
+                idx = np.flatnonzero(naive_mask)
+                local_utc, local_flags = self.clock.to_utc(time_us[idx])
+                utc[idx] = local_utc
+                flags[idx] = local_flags
         return Records(
             line=lines,
             time_us=utc,

@@ -86,6 +86,8 @@ class LocalClock:
         except pa.ArrowInvalid:
             return None
         offset = firsts - utc.cast(pa.int64()).to_numpy()
+        if offset.min() == offset.max():  # one offset for the whole block (no transition in it)
+            return wall_us - offset[0]
         return wall_us - np.repeat(offset, np.diff(np.append(starts, len(seconds))))
 
     def _resolve_fold(self, wall_us, early_us, late_us, positions, utc) -> None:
