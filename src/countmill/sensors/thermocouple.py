@@ -42,6 +42,7 @@ emf is not single-valued (it dips below zero), and NIST's inverse starts at 0.29
 
 from __future__ import annotations
 
+import bisect
 import functools
 from dataclasses import dataclass, field, replace
 
@@ -176,8 +177,18 @@ def _one_subrange(x: np.ndarray, breaks: np.ndarray, side: str, bounds=None) -> 
     low, high = (x.min(), x.max()) if bounds is None else bounds
     if np.isnan(low) or np.isnan(high):
         return None
-    first, last = np.searchsorted(breaks, [low, high], side=side)
-    return int(first) if first == last else None
+    # (a handful of limits: bisect on floats, no arrays made for two numbers)
+    find = bisect.bisect_left if side == "left" else bisect.bisect_right
+    limits = breaks.tolist()
+    first, last = find(limits, float(low)), find(limits, float(high))
+    return first if first == last else None
+
+
+def _widened(x: np.ndarray, margin: float):
+    """(min - margin, max + margin) of ``x`` (NaN when a value is NaN), None when empty."""
+    if x.size == 0:
+        return None
+    return x.min() - margin, x.max() + margin
 
 
 def _bounds_within(x: np.ndarray, low: float, high: float):
@@ -209,10 +220,10 @@ def _subrange(x: np.ndarray, k: int, tab: _TypeTables, slope: bool) -> tuple[np.
     if tab.exponential is not None and k == len(tab.c) - 1:
         a0, a1, a2 = tab.exponential
         offset = x - a2
-        g = a0 * np.exp(a1 * offset ** 2)
+        g = a0 * np.exp(a1 * np.square(offset))
         p += g
         if slope:
-            dp += g * 2.0 * a1 * offset
+            dp += g * (2.0 * a1) * offset
     return p, dp
 
 
@@ -343,8 +354,14 @@ def _temperature(e: np.ndarray, tab: _TypeTables) -> np.ndarray:
     # (over the hundredths of a degree they move it changes by far less than the error
     # left needs; the second step squares away its interpolation error, too)
     s = _slope(t, tab)
+    # the steps move t by less than 0.1 degC: when the first estimates lie that far inside
+    # one subrange of the reference function, every step stays in it
+    piece = _one_subrange(t, tab.t_breaks, "left", _widened(t, 0.1))
     for _ in range(_NEWTON_STEPS):
-        f, _unused = _emf_and_slope(t, tab, slope=False)
+        if piece is None:
+            f, _unused = _emf_and_slope(t, tab, slope=False)
+        else:
+            f, _unused = _subrange(t, piece, tab, slope=False)
         f -= e
         f /= s
         t -= f

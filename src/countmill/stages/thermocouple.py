@@ -94,7 +94,7 @@ def _apply(x: np.ndarray, params: ThermocoupleParams, ctx: StageContext) -> Stag
     else:
         t_cj = np.float64(params.cold_junction)
     t = np.asarray(cold_junction_compensated_temperature(emf, t_cj, type=params.type), dtype=np.float64)
-    if t.shape == emf.shape and not np.isnan(t).any():
+    if t.shape == emf.shape and not np.isnan(t.min(initial=0.0)):  # (min is NaN if any value is)
         # outside the model means no temperature: none here
         return StageResult(values=t, flags=None)
     # some record has no temperature: tell a NaN input from a value outside the model
