@@ -145,7 +145,12 @@ def step_read(raw: Path, spec, timezone: str) -> int:
 # --- the per-row script a user would otherwise write -----------------------------------------
 
 def per_row_params(map_path: Path) -> dict:
-    """Per channel: ADC, gains and a simplified chain, from the map (no quality tests)."""
+    """Per channel id: ADC, gains and the chain (each channel's first revision), calibration.
+
+    What a careful user prepares once before the per-row loop: the map read with ``tomllib``,
+    three-point thermistors turned into Steinhart-Hart coefficients, calibration points
+    fitted. No quality tests, no revisions, no time-zone rules beyond pandas' localisation.
+    """
     import tomllib
 
     doc = tomllib.loads(map_path.read_text())
@@ -154,31 +159,115 @@ def per_row_params(map_path: Path) -> dict:
         if entry["id"] in params:
             continue
         adc = entry.get("adc", doc["adc"])
-        gains = {int(k): float(v) for k, v in entry.get("gains", doc["gains"]).items()}
-        stages = [s["stage"] for s in entry["chain"]]
-        p = {"bits": adc["bits"], "lo": adc["span"][0], "hi": adc["span"][1], "twos": adc.get("coding") == "twos",
-             "gains": gains, "kind": "linear", "slope": 1.0, "intercept": 0.0}
-        first = entry["chain"][0]
-        if stages == ["linear"]:
-            p.update(slope=first["slope"], intercept=first["intercept"])
-        elif stages == ["current_excitation", "rtd"]:
-            p.update(kind="rtd", amps=first["amps"], lead=first.get("lead_ohms", 0.0), r0=entry["chain"][1].get("r0", 100.0))
-        elif stages[0] == "divider" and "r25" in entry["chain"][1]:
-            p.update(kind="ntc", exc=first["excitation"], rfix=first["r_fixed"], r25=entry["chain"][1]["r25"],
-                     beta=entry["chain"][1]["beta"])
-        elif stages == ["current_loop"]:
-            p.update(kind="loop", shunt=first["shunt"], low=first["low"], high=first["high"])
-        params[entry["id"]] = p
+        chain = []
+        for stage in entry["chain"]:
+            stage = dict(stage)
+            if stage["stage"] == "thermistor" and "points" in stage:
+                t_k = np.array([p[0] for p in stage["points"]]) + 273.15
+                ln_r = np.log([p[1] for p in stage["points"]])
+                a, b, c = np.linalg.solve(np.column_stack([np.ones(3), ln_r, ln_r ** 3]), 1.0 / t_k)
+                stage.update(a=a, b=b, c=c)
+            chain.append(stage)
+        calibration = None
+        if "calibration" in entry:
+            points = np.array(entry["calibration"]["points"], dtype=float)
+            calibration = np.polyfit(points[:, 0], points[:, 1], entry["calibration"].get("degree", 1))[::-1].tolist()
+        params[entry["id"]] = {
+            "name": entry["name"], "bits": adc["bits"], "lo": adc["span"][0], "hi": adc["span"][1],
+            "twos": adc.get("coding") == "twos",
+            "gains": {int(k): float(v) for k, v in entry.get("gains", doc["gains"]).items()},
+            "chain": chain, "calibration": calibration,
+        }
     return params
 
 
 def per_row_script(csv_slice: Path, params: dict, out: Path) -> int:
-    """What a user writes without countmill: read, one Python call per row, write."""
+    """What a user writes without countmill: read, one Python call per row, write.
+
+    Every stage of the demo map in plain Python per row (IEC 60751 RTDs above 0 degC,
+    Steinhart-Hart and beta thermistors, NIST thermocouple polynomials with the last
+    cold-junction reading, bridge, load cell, 4-20 mA, table, polynomial, the cold-room
+    calibration) and the derived pump power on the pump-current rows; no quality tests.
+    """
+    import bisect
     import math
 
     import pandas as pd
 
-    a, b = 3.9083e-3, -5.775e-7  # IEC 60751 coefficients (0 degC and up)
+    from countmill.sensors import _nist_its90 as nist  # the published coefficients a user would paste
+
+    a_cvd, b_cvd = 3.9083e-3, -5.775e-7  # IEC 60751 (0 degC and up)
+    last = {}  # latest value per channel name, for the cold junction and the derived row
+
+    def poly(coefficients, x):
+        y = 0.0
+        for c in reversed(coefficients):
+            y = y * x + c
+        return y
+
+    def tc_emf(letter, t):
+        for r in nist.REFERENCE[letter]:
+            if t <= r.t_high:
+                e = poly(r.c, t)
+                if letter == "K" and t >= 0:
+                    a0, a1, a2 = nist.K_EXPONENTIAL
+                    e += a0 * math.exp(a1 * (t - a2) ** 2)
+                return e
+        return float("nan")
+
+    def tc_temperature(letter, e):
+        for r in nist.INVERSE[letter]:
+            if e <= r.e_high:
+                return poly(r.d, e)
+        return float("nan")
+
+    def stage_value(stage, x):
+        kind = stage["stage"]
+        if kind == "linear":
+            return stage["slope"] * x + stage["intercept"]
+        if kind == "polynomial":
+            return poly(stage["coefficients"], x)
+        if kind == "table":
+            xs = [p[0] for p in stage["points"]]
+            i = bisect.bisect_right(xs, x)
+            if i == 0 or i == len(xs):
+                return float("nan")
+            (x0, y0), (x1, y1) = stage["points"][i - 1], stage["points"][i]
+            return y0 + (y1 - y0) * (x - x0) / (x1 - x0)
+        if kind == "current_excitation":
+            return x / stage["amps"] - stage.get("lead_ohms", 0.0)
+        if kind == "divider":
+            exc, r = stage["excitation"], stage["r_fixed"]
+            if not 0 < x < exc:
+                return float("nan")
+            return r * x / (exc - x) if stage["sensor"] == "low" else r * (exc - x) / x
+        if kind == "inverting_amp":
+            if stage["sensor"] == "rf":
+                return -x * stage["ri"] / stage["vin"]
+            return -stage["vin"] * stage["rf"] / x - stage.get("series", 0.0)
+        if kind == "rtd":
+            ratio = x / stage.get("r0", 100.0)
+            disc = a_cvd * a_cvd - 4 * b_cvd * (1 - ratio)
+            return (-a_cvd + math.sqrt(disc)) / (2 * b_cvd) if disc >= 0 else float("nan")
+        if kind == "thermistor":
+            if not x > 0:
+                return float("nan")
+            if "beta" in stage:
+                return 1 / (1 / 298.15 + math.log(x / stage["r25"]) / stage["beta"]) - 273.15
+            ln_r = math.log(x)
+            return 1 / (stage["a"] + stage["b"] * ln_r + stage["c"] * ln_r ** 3) - 273.15
+        if kind == "thermocouple":
+            t_cj = last.get(stage["cold_junction"], float("nan"))
+            return tc_temperature(stage["type"], 1000 * x + tc_emf(stage["type"], t_cj))
+        if kind == "bridge":
+            vr = x / stage["excitation"]
+            return 1e6 * 4 * vr / (stage.get("gauge_factor", 2.0) * (1 - 2 * vr))
+        if kind == "ratiometric":
+            return (x / stage["excitation"] - stage.get("zero", 0.0)) / stage["rated_output"] * stage["capacity"]
+        if kind == "current_loop":
+            ma = x / stage["shunt"] * 1000
+            return stage["low"] + (ma - 4) / 16 * (stage["high"] - stage["low"])
+        raise ValueError(kind)
 
     def convert_row(row):
         p = params.get(int(row["channel"]))
@@ -186,27 +275,24 @@ def per_row_script(csv_slice: Path, params: dict, out: Path) -> int:
             return float("nan")
         lsb = (p["hi"] - p["lo"]) / 2 ** p["bits"]
         base = (p["lo"] + p["hi"]) / 2 if p["twos"] else p["lo"]
-        volts = (base + int(row["code"]) * lsb) / p["gains"].get(int(row["gain"]), float("nan"))
-        kind = p["kind"]
-        if kind == "linear":
-            return p["slope"] * volts + p["intercept"]
-        if kind == "rtd":
-            ratio = (volts / p["amps"] - p["lead"]) / p["r0"]
-            disc = a * a - 4 * b * (1 - ratio)
-            return (-a + math.sqrt(disc)) / (2 * b) if disc >= 0 else float("nan")
-        if kind == "ntc":
-            if not 0 < volts < p["exc"]:
-                return float("nan")
-            r = p["rfix"] * volts / (p["exc"] - volts)
-            return 1 / (1 / 298.15 + math.log(r / p["r25"]) / p["beta"]) - 273.15
-        if kind == "loop":
-            ma = volts / p["shunt"] * 1000
-            return p["low"] + (ma - 4) / 16 * (p["high"] - p["low"])
-        return volts
+        x = (base + int(row["code"]) * lsb) / p["gains"].get(int(row["gain"]), float("nan"))
+        try:
+            for stage in p["chain"]:
+                x = stage_value(stage, x)
+        except (ValueError, ZeroDivisionError):
+            x = float("nan")
+        if p["calibration"] is not None:
+            x = poly(p["calibration"], x)
+        last[p["name"]] = x
+        return x
+
+    def pump_power(row):  # the derived row: supply volts times pump current, in kW
+        return last.get("supply_volts", float("nan")) * row["value"] / 1000 if row["channel"] == 3 else float("nan")
 
     df = pd.read_csv(csv_slice, comment="#")
     df["time"] = pd.to_datetime(df["time"]).dt.tz_localize("Europe/Dublin", ambiguous="NaT", nonexistent="NaT")
     df["value"] = df.apply(convert_row, axis=1)
+    df["pump_power"] = df.apply(pump_power, axis=1)
     df.to_parquet(out)
     return len(df)
 
