@@ -243,8 +243,9 @@ def run_conversion(
 
     ``make_sink(converter, provenance)`` returns an object with ``write(rows)``, ``close()``
     and ``abort()``; it receives the tidy rows in input order, with their final flags. The
-    provenance (with the source's SHA-256, hashed before reading) is known up front so that
-    Parquet sinks can put it in the Arrow schema itself.
+    source's SHA-256 is computed in a helper thread while the file is read and converted, and
+    is set in ``provenance["source"]["sha256"]`` before ``close()``: sinks write the
+    provenance when they close, never before.
     """
     if not raw.exists():
         raise InputError(f"{raw}: no such file")
@@ -259,13 +260,15 @@ def run_conversion(
             raise InputError(f"{raw}: cannot read: {exc.strerror}") from None
 
     # Three stages side by side (see countmill.pipeline.stream): the source is hashed and
-    # read ahead in helper threads, converted here, and written by a third thread, which
-    # opens the sink once the hash (part of the provenance) is known.
+    # read ahead in helper threads, converted here, and written by a third thread. The sink
+    # opens at once; the hash joins the provenance before the sink closes (waiting for it
+    # first would hold the first chunks back while the whole file is hashed).
     digest = InThread(source_hash, name="countmill-hash")
     tally = _Tally(converter.names)
+    info = provenance(cmap, raw, "")
 
     def open_sink():
-        return make_sink(converter, provenance(cmap, raw, digest.result()))
+        return make_sink(converter, info)
 
     def write(sink, rows: Rows) -> None:
         sink.write(rows)
@@ -300,6 +303,7 @@ def run_conversion(
             # checked before anything is published: exit 1 leaves nothing at the final path
             raise InputError(f"{raw}: accounting error: {data_lines} data lines, {records} records, {rejects.count} rejects")
         sink = writer.finish()
+        info["source"]["sha256"] = digest.result()
         sink.close()
         rejects_path = rejects.close()
     except BaseException:

@@ -29,6 +29,7 @@ are left out and counted per channel in the metadata (``layout.late_samples``); 
 
 from __future__ import annotations
 
+import base64
 import dataclasses
 import json
 import re
@@ -166,8 +167,10 @@ class WideSink:
     def __init__(self, final: Path, columns: WideColumns, every_us: int, settle_us: int, layout_info: dict, provenance: dict):
         self.final, self.columns, self.layout_info = final, columns, layout_info
         self.bins = TimeBins(len(columns.names), every_us, settle_us)
+        # (the provenance is written when the file closes: the source's hash may still be
+        # on its way while rows are written)
         self.provenance = {**provenance, "layout": layout_info}
-        self.schema = columns.schema().with_metadata({"countmill": json.dumps(self.provenance)})
+        self.schema = columns.schema()
         self.late_samples: dict[str, int] = {}
         self.whole_seconds = every_us % 1_000_000 == 0
         self.tmp = temporary_path(final)
@@ -230,8 +233,11 @@ class WideSink:
             publish(self.tmp, self.final)
             publish(sidecar_tmp, self.sidecar)
         else:
-            # the schema (written first) cannot change; the late count goes in its own key
-            self._writer.add_key_value_metadata({LATE_KEY: json.dumps(late)})
+            # the provenance as written before late counts were kept; the counts in their own key
+            provenance = json.dumps(self.provenance)
+            schema = self.schema.with_metadata({"countmill": provenance})
+            stored = base64.b64encode(schema.serialize().to_pybytes()).decode("ascii")
+            self._writer.add_key_value_metadata({"countmill": provenance, "ARROW:schema": stored, LATE_KEY: json.dumps(late)})
             self._writer.close()
             publish(self.tmp, self.final)
         return self.final

@@ -124,8 +124,11 @@ class ParquetSink:
         self.final = final
         self.tmp = temporary_path(final)
         self.names, self.units = names, units
-        # the provenance goes into the Arrow schema itself, so readers see it as schema metadata
-        self.schema = tidy_schema().with_metadata({"countmill": json.dumps(provenance)})
+        # the provenance goes into the file when it closes (the source's hash may still be
+        # on its way while rows are written): in the stored Arrow schema, so readers see it
+        # as schema metadata, and as a key of the file's own metadata
+        self.provenance = provenance
+        self.schema = tidy_schema()
         self._write_schema = dictionary_schema(self.schema)
         self.writer = pq.ParquetWriter(
             self.tmp,
@@ -157,8 +160,10 @@ class ParquetSink:
         self._flush()
         # Readers rebuild Arrow types from the stored Arrow schema: store the plain one, so
         # channel and unit read back as strings, exactly as if written from strings.
-        stored = base64.b64encode(self.schema.serialize().to_pybytes()).decode("ascii")
-        self.writer.add_key_value_metadata({"ARROW:schema": stored})
+        provenance = json.dumps(self.provenance)
+        schema = self.schema.with_metadata({"countmill": provenance})
+        stored = base64.b64encode(schema.serialize().to_pybytes()).decode("ascii")
+        self.writer.add_key_value_metadata({"countmill": provenance, "ARROW:schema": stored})
         self.writer.close()
         publish(self.tmp, self.final)
         return self.final
