@@ -326,7 +326,7 @@ def test_output_is_written_under_a_temporary_name_until_complete(write_log, benc
     assert len(seen) > 1
     assert not any(exists for exists, _ in seen)
     assert all("day.parquet" not in names for _, names in seen)
-    # the sink opens in the writer thread, after the first chunk is read, so the first looks may come
+    # the sink opens in the background writer thread, so the first looks may come
     # before the temporary file exists; later ones see it
     assert any(name.startswith(".day.parquet.partial-") for _, names in seen for name in names)
     assert sorted(p.name for p in final.parent.iterdir()) == ["day.parquet"]
