@@ -26,7 +26,8 @@ loops, a derived channel; ISO local times with milliseconds), cached in
 * peak resident memory of each conversion in its own process, at two file sizes four times
   apart (``os.wait4`` gives the child's own ``ru_maxrss``);
 * a thermocouple channel against a linear channel: the converter's cost per record on
-  chunks that differ only in that channel.
+  chunks that differ only in that channel, and the same end to end (``countmill convert``
+  of logs that differ only in that channel).
 
 The timed steps run interleaved (round after round, the order rotating), and the medians
 are reported, so a busy machine slows every step alike. The table is printed and written to
@@ -63,6 +64,7 @@ from workloads import (  # noqa: E402 (the sibling module, whichever folder this
     step_read,
     step_transcode,
     tc_vs_linear,
+    tc_vs_linear_files,
     write_slice,
 )
 
@@ -258,6 +260,7 @@ def main(argv: list[str] | None = None) -> int:
             raise SystemExit(f"the steps did not see the same records: {counts}")
         scale = data_lines / counts["per_row_slice"]
         tc = tc_vs_linear(out, 20_000 if args.quick else 2 * (DEFAULT_CHUNK_ROWS // len(cmap.channels)), repeat)
+        tc["end_to_end"] = tc_vs_linear_files(args.data, 20_000 if args.quick else 1_000_000, repeat)
         memory = peak_memory(files, binmap_path, out)
         startup = cli_startup(csv, out)
 
@@ -329,6 +332,10 @@ def print_table(r: dict) -> None:
     print(f"\nper record in the converter: linear {tc['linear_us_per_record']:.3f} us, type K "
           f"{tc['thermocouple_us_per_record']:.3f} us; whole chunk with type K / with linear "
           f"{tc['chunk_with_type_k_over_chunk_with_linear']:.2f}")
+    ee = tc["end_to_end"]
+    print(f"per added line, whole conversion: linear {ee['linear_us_per_line']:.3f} us, type K "
+          f"{ee['thermocouple_us_per_line']:.3f} us ({ee['thermocouple_over_linear']:.2f}x); "
+          f"file with type K / file with linear {ee['file_with_type_k_over_file_with_linear']:.2f}")
     print("\nratios (target)")
     targets = r["targets"]
     print(f"  convert / transcode            {ratios['convert_over_transcode']:8.2f}   ({targets['convert_over_transcode']})")

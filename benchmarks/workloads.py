@@ -411,3 +411,65 @@ def tc_vs_linear(folder: Path, records: int, repeat: int, stream: int = 6) -> di
         # the whole chunks (cold junction included): what a two-channel logger would see
         "chunk_with_type_k_over_chunk_with_linear": med["with type K"] / med["with linear"],
     }
+
+
+def tc_vs_linear_files(folder: Path, lines: int, repeat: int) -> dict:
+    """The same comparison end to end: ``countmill convert`` of three CSV logs.
+
+    The cold-junction channel alone (``lines / 2`` lines), and with a linear channel or a
+    type K channel interleaved (``lines`` lines), converted to Parquet and timed in turn,
+    round after round; what a channel adds to a whole conversion (reading, conversion,
+    quality tests, writing) is the time over the junction-only file, per added line.
+    """
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    from countmill.chanmap import load_map
+    from countmill.convert import convert_file
+
+    map_path = folder / "tc-vs-linear.toml"
+    map_path.write_text(TC_MAP)
+    cmap = load_map(map_path)
+    rng = np.random.default_rng(SEED)
+    half = lines // 2
+    start = np.datetime64("2026-11-03T00:00:00.000", "ms")
+    t = start + np.arange(half, dtype=np.int64) * 10
+    junction = np.full(half, 4600) + rng.integers(-3, 4, half)
+    other = (2000 + 1500 * np.sin(np.arange(half) / 5000)).astype(np.int64) + rng.integers(-3, 4, half)
+
+    def write(name: str, channel_id: int | None, gain: int) -> Path:
+        path = folder / f"tc-vs-linear-{name}-{lines}.csv"
+        if path.exists():
+            return path
+        if channel_id is None:
+            time_ms, channel, code, gains = t, np.zeros(half, np.int64), junction, np.zeros(half, np.int64)
+        else:
+            time_ms = np.repeat(t, 2) + np.tile(np.array([0, 5], dtype="timedelta64[ms]"), half)
+            channel = np.tile([0, channel_id], half)
+            code = np.empty(2 * half, np.int64)
+            code[0::2], code[1::2] = junction, other
+            gains = np.tile([0, gain], half)
+        table = pa.table({"time": pa.array(np.datetime_as_string(time_ms, unit="ms")), "channel": channel,
+                          "code": code, "gain": gains})
+        pacsv.write_csv(table, path, pacsv.WriteOptions(quoting_style="none"))
+        return path
+
+    files = {"junction only": write("junction", None, 0), "with linear": write("linear", 1, 0),
+             "with type K": write("k", 2, 3)}
+    times: dict[str, list[float]] = {k: [] for k in files}
+    for _ in range(max(repeat, 3)):
+        for name, path in files.items():
+            begin = time.perf_counter()
+            convert_file(path, cmap, folder / "tc-vs-linear.parquet")
+            times[name].append(time.perf_counter() - begin)
+    med = {k: statistics.median(v) for k, v in times.items()}
+    linear_us = (med["with linear"] - med["junction only"]) / half * 1e6
+    tc_us = (med["with type K"] - med["junction only"]) / half * 1e6
+    return {
+        "lines_with_second_channel": 2 * half,
+        "seconds": med,
+        "linear_us_per_line": linear_us,
+        "thermocouple_us_per_line": tc_us,
+        "thermocouple_over_linear": tc_us / linear_us if linear_us > 0 else None,
+        "file_with_type_k_over_file_with_linear": med["with type K"] / med["with linear"],
+    }
