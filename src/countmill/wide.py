@@ -29,7 +29,6 @@ are left out and counted per channel in the metadata (``layout.late_samples``); 
 
 from __future__ import annotations
 
-import base64
 import dataclasses
 import json
 import re
@@ -49,7 +48,7 @@ from countmill.convert import ConversionResult, run_conversion
 from countmill.errors import UsageError
 from countmill.flags import cf_quality_attributes
 from countmill.pipeline.convert import Converter, Rows
-from countmill.pipeline.output import publish, temporary_path
+from countmill.pipeline.output import provenance_metadata, publish, temporary_path
 from countmill.units import affine_conversion, same_dimension
 
 US_PER = {"us": 1, "ms": 1_000, "s": 1_000_000, "min": 60_000_000, "h": 3_600_000_000, "d": 86_400_000_000}
@@ -233,11 +232,8 @@ class WideSink:
             publish(self.tmp, self.final)
             publish(sidecar_tmp, self.sidecar)
         else:
-            # the provenance as written before late counts were kept; the counts in their own key
-            provenance = json.dumps(self.provenance)
-            schema = self.schema.with_metadata({"countmill": provenance})
-            stored = base64.b64encode(schema.serialize().to_pybytes()).decode("ascii")
-            self._writer.add_key_value_metadata({"countmill": provenance, "ARROW:schema": stored, LATE_KEY: json.dumps(late)})
+            # the provenance with the layout as it was set up; the late counts in their own key
+            self._writer.add_key_value_metadata({**provenance_metadata(self.schema, self.provenance), LATE_KEY: json.dumps(late)})
             self._writer.close()
             publish(self.tmp, self.final)
         return self.final

@@ -119,16 +119,35 @@ def publish(tmp: Path, final: Path) -> None:
         os.close(dir_fd)
 
 
-class ParquetSink:
+def provenance_metadata(schema: pa.Schema, provenance: dict) -> dict[str, str]:
+    """Parquet file metadata for a file's provenance, added when the writer closes.
+
+    The provenance goes in twice: as the ``countmill`` key of the file's own metadata, and
+    in the stored Arrow schema (``ARROW:schema``, which readers rebuild the Arrow schema
+    from), so readers see it as schema metadata too. ``schema`` is the one stored: the plain
+    one, so that columns written dictionary-encoded read back as plain strings.
+    """
+    text = json.dumps(provenance)
+    stored = schema.with_metadata({**(schema.metadata or {}), b"countmill": text.encode()})
+    return {"countmill": text, "ARROW:schema": base64.b64encode(stored.serialize().to_pybytes()).decode("ascii")}
+
+
+class _TidySink:
+    """What both tidy sinks keep: where the file goes, the name and unit tables, the
+    provenance (read when the file closes: the source's hash may still be on its way while
+    rows are written) and the tidy schema."""
+
     def __init__(self, final: Path, names: list[str], units: list[str], provenance: dict):
         self.final = final
         self.tmp = temporary_path(final)
         self.names, self.units = names, units
-        # the provenance goes into the file when it closes (the source's hash may still be
-        # on its way while rows are written): in the stored Arrow schema, so readers see it
-        # as schema metadata, and as a key of the file's own metadata
         self.provenance = provenance
         self.schema = tidy_schema()
+
+
+class ParquetSink(_TidySink):
+    def __init__(self, final: Path, names: list[str], units: list[str], provenance: dict):
+        super().__init__(final, names, units, provenance)
         self._write_schema = dictionary_schema(self.schema)
         self.writer = pq.ParquetWriter(
             self.tmp,
@@ -158,12 +177,8 @@ class ParquetSink:
 
     def close(self) -> Path:
         self._flush()
-        # Readers rebuild Arrow types from the stored Arrow schema: store the plain one, so
-        # channel and unit read back as strings, exactly as if written from strings.
-        provenance = json.dumps(self.provenance)
-        schema = self.schema.with_metadata({"countmill": provenance})
-        stored = base64.b64encode(schema.serialize().to_pybytes()).decode("ascii")
-        self.writer.add_key_value_metadata({"countmill": provenance, "ARROW:schema": stored})
+        # (the plain schema: channel and unit read back as strings, as if written from strings)
+        self.writer.add_key_value_metadata(provenance_metadata(self.schema, self.provenance))
         self.writer.close()
         publish(self.tmp, self.final)
         return self.final
@@ -192,15 +207,11 @@ CSVW_TYPES = {
 }
 
 
-class CsvSink:
+class CsvSink(_TidySink):
     """CSV for spreadsheets: ISO 8601 UTC times with Z, empty fields for NaN/null."""
 
     def __init__(self, final: Path, names: list[str], units: list[str], provenance: dict):
-        self.final = final
-        self.tmp = temporary_path(final)
-        self.names, self.units = names, units
-        self.provenance = provenance
-        self.schema = tidy_schema()
+        super().__init__(final, names, units, provenance)
         self.sidecar = final.with_name(final.name + "-metadata.json")
         self._file = open(self.tmp, "wb")
         self._writer: pacsv.CSVWriter | None = None
