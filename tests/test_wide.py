@@ -9,6 +9,7 @@ one code is 1 mV, common practice for a 4.096 V reference, no source).
 
 from __future__ import annotations
 
+import hashlib
 import json
 from pathlib import Path
 
@@ -182,6 +183,8 @@ def test_wide_units_and_provenance_in_parquet_metadata(rig, tmp_path):
     assert info["map"]["name"] == "wide-test-rig"
     assert info["layout"]["name"] == "wide" and info["layout"]["every_seconds"] == 60.0
     assert set(CHANNELS) <= set(info["channels"])
+    # the source's SHA-256 (hashed while the file is converted) is in the provenance
+    assert info["source"]["sha256"] == hashlib.sha256(raw.read_bytes()).hexdigest()
 
 
 def test_wide_csv_dtypes_and_sidecar(rig, tmp_path):

@@ -311,6 +311,10 @@ def run_conversion(
         if sink is not None:
             sink.abort()
         rejects.abort()
+        try:  # let the hash thread finish reading the source before the error goes up
+            digest.result()
+        except Exception:
+            pass
         raise
     source_sha = digest.result()
     return ConversionResult(

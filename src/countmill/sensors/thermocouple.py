@@ -68,7 +68,7 @@ THERMOCOUPLE_TYPES: tuple[str, ...] = _nist.TYPES
 _EMF_ROUND_OFF_MV = 1e-9
 
 #: Newton steps after the NIST inverse polynomial. Its error is below 0.06 degC; one step
-#: leaves up to 1.5e-5 degC, two leave less than 5e-8 degC over every type's range.
+#: leaves up to 1.5e-5 degC, two leave less than 1e-8 degC over every type's range.
 _NEWTON_STEPS = 2
 
 
@@ -85,8 +85,8 @@ class _TypeTables:
     e_max: float
     e_breaks: np.ndarray  # inner subrange limits of the inverse function [mV]
     d: tuple[np.ndarray, ...]  # inverse-function coefficients per subrange, ascending
-    # dE/dt [mV/degC] at every whole degree from t_min, and its change to the next degree:
-    # the Newton steps' slope by linear interpolation (see :func:`_slope`)
+    # dE/dt [mV/degC] at the start of every one-degree interval from t_min, and its change
+    # over the interval: the Newton steps' slope by linear interpolation (see :func:`_slope`)
     slope_at: np.ndarray = field(default_factory=lambda: np.zeros(0))
     slope_change: np.ndarray = field(default_factory=lambda: np.zeros(0))
 
@@ -119,19 +119,28 @@ def _tables(letter: str) -> _TypeTables:
         d=tuple(np.array(r.d) for r in inv),
     )
     e_low, e_high = _emf_and_slope(np.array([partial.t_inv_min, partial.t_inv_max]), partial)[0]
-    degrees = partial.t_min + np.arange(int(np.ceil(partial.t_max - partial.t_min)) + 2, dtype=np.float64)
-    slope_at = _emf_and_slope(degrees, partial)[1]
+    # dE/dt at both ends of each one-degree interval, from the subrange polynomial that holds
+    # the interval's middle: where a subrange limit falls on a whole degree (0 degC for most
+    # types) the derivative steps, and an interval must not interpolate across the step
+    start = partial.t_min + np.arange(int(np.ceil(partial.t_max - partial.t_min)) + 1, dtype=np.float64)
+    piece = np.searchsorted(partial.t_breaks, start + 0.5, side="left")
+    slope_at, slope_end = np.empty_like(start), np.empty_like(start)
+    for k in np.unique(piece).tolist():
+        sel = piece == k
+        slope_at[sel] = _subrange(start[sel], k, partial, slope=True)[1]
+        slope_end[sel] = _subrange(start[sel] + 1.0, k, partial, slope=True)[1]
     return replace(partial, e_min=float(e_low), e_max=float(e_high), slope_at=slope_at,
-                   slope_change=np.append(np.diff(slope_at), 0.0))
+                   slope_change=slope_end - slope_at)
 
 
 def _slope(t: np.ndarray, tab: _TypeTables) -> np.ndarray:
     """dE/dt [mV/degC] near ``t``, interpolated linearly between whole degrees.
 
     Only the Newton steps use it: an error of the slope scales each step's correction, and
-    the table's (below 1e-3 relative, from the curvature of dE/dt over one degree) leaves
-    the two steps within 5e-8 degC; it costs a few array passes instead of a second
-    Horner scheme for the derivative. NaN in, NaN out.
+    the table's (below 3e-5 relative, from the curvature of dE/dt over one degree; each
+    interval takes the subrange polynomial of its middle, so none interpolates across the
+    step of dE/dt at a subrange limit) leaves the two steps within 1e-8 degC; it costs a few
+    array passes instead of a second Horner scheme for the derivative. NaN in, NaN out.
     """
     position = t - tab.t_min
     with np.errstate(invalid="ignore"):
@@ -327,10 +336,13 @@ def thermocouple_temperature(emf, *, type: str):
     .. math:: t_{k+1} = t_k - \frac{E(t_k) - E}{S(t_0)},
 
     then make the result the inverse of the reference function: ``thermocouple_temperature(
-    thermocouple_emf(t))`` returns ``t`` within 5e-8 degC over every type's inverse range.
-    :math:`S(t_0)` is interpolated linearly in a table of the analytic derivative at whole
-    degrees (relative error below 1e-3, which the second step squares away). The result is
-    kept within the inverse function's temperature limits.
+    thermocouple_emf(t))`` returns ``t`` within 1e-8 degC over every type's inverse range.
+    (At a few subrange limits NIST's neighbouring reference polynomials do not quite meet,
+    so an emf there has two inverses and either may come back: 3.5e-7 degC apart for type B
+    at 630.615 degC, 1.3e-7 for type R and 2.3e-8 for type S at 1664.5 degC.)
+    :math:`S(t_0)` is interpolated linearly in a table of the analytic derivative over
+    one-degree intervals (relative error below 3e-5, which the second step squares away).
+    The result is kept within the inverse function's temperature limits.
 
     References
     ----------
