@@ -208,10 +208,12 @@ def test_cold_junction_matches_thermocouple_its90(letter, t_cj):
 
 @pytest.mark.parametrize("letter", TYPES)
 def test_round_trip_over_whole_inverse_range(letter):
-    # required: within 0.001 degC; observed about 2e-10 degC
+    # required: within 0.001 degC; documented: within 2e-8 degC (observed at most 1e-8,
+    # type J); the grid's step is not a divisor of the subrange limits where NIST's
+    # polynomials do not quite meet (type B 630.615, R and S 1664.5 degC: see the docstring)
     t = np.linspace(*INVERSE_T_RANGE[letter], 200_001)
     back = thermocouple_temperature(thermocouple_emf(t, type=letter), type=letter)
-    assert np.max(np.abs(back - t)) < 1e-6
+    assert np.max(np.abs(back - t)) < 2e-8
 
 
 @pytest.mark.parametrize("letter", TYPES)

@@ -68,7 +68,7 @@ THERMOCOUPLE_TYPES: tuple[str, ...] = _nist.TYPES
 _EMF_ROUND_OFF_MV = 1e-9
 
 #: Newton steps after the NIST inverse polynomial. Its error is below 0.06 degC; one step
-#: leaves up to 1.5e-5 degC, two leave less than 1e-8 degC over every type's range.
+#: leaves up to 1.5e-5 degC, two leave less than 2e-8 degC over every type's range.
 _NEWTON_STEPS = 2
 
 
@@ -139,7 +139,7 @@ def _slope(t: np.ndarray, tab: _TypeTables) -> np.ndarray:
     Only the Newton steps use it: an error of the slope scales each step's correction, and
     the table's (below 3e-5 relative, from the curvature of dE/dt over one degree; each
     interval takes the subrange polynomial of its middle, so none interpolates across the
-    step of dE/dt at a subrange limit) leaves the two steps within 1e-8 degC; it costs a few
+    step of dE/dt at a subrange limit) leaves the two steps within 2e-8 degC; it costs a few
     array passes instead of a second Horner scheme for the derivative. NaN in, NaN out.
     """
     position = t - tab.t_min
@@ -336,7 +336,7 @@ def thermocouple_temperature(emf, *, type: str):
     .. math:: t_{k+1} = t_k - \frac{E(t_k) - E}{S(t_0)},
 
     then make the result the inverse of the reference function: ``thermocouple_temperature(
-    thermocouple_emf(t))`` returns ``t`` within 1e-8 degC over every type's inverse range.
+    thermocouple_emf(t))`` returns ``t`` within 2e-8 degC over every type's inverse range.
     (At a few subrange limits NIST's neighbouring reference polynomials do not quite meet,
     so an emf there has two inverses and either may come back: 3.5e-7 degC apart for type B
     at 630.615 degC, 1.3e-7 for type R and 2.3e-8 for type S at 1664.5 degC.)
