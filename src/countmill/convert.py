@@ -263,7 +263,6 @@ def run_conversion(
     # read ahead in helper threads, converted here, and written by a third thread. The sink
     # opens at once; the hash joins the provenance before the sink closes (waiting for it
     # first would hold the first chunks back while the whole file is hashed).
-    digest = InThread(source_hash, name="countmill-hash")
     tally = _Tally(converter.names)
     info = provenance(cmap, raw, "")
 
@@ -274,16 +273,22 @@ def run_conversion(
         sink.write(rows)
         tally.add(rows)
 
-    writer = BackgroundWriter(open_sink, write)
-    rejects = RejectsSink(out)
     held: list[Rows] = []
     held_start = 0  # global index of the first held row
     rows_written = 0
     records = 0
+    # The helper threads start inside the try: an interruption (SIGINT, SIGTERM in a batch)
+    # that lands at any point after they exist still stops them before the error goes up,
+    # so no helper is left running while the interpreter shuts down.
+    digest = writer = rejects = None
     try:
+        digest = InThread(source_hash, name="countmill-hash")
+        writer = BackgroundWriter(open_sink, write)
+        rejects = RejectsSink(out)
         with open_log(raw, cmap.input, cmap.timezone, chunk_rows) as reader:
-            chunks = Prefetch(iter_chunks(reader.blocks(), chunk_rows), name="countmill-read")
+            chunks = None
             try:
+                chunks = Prefetch(iter_chunks(reader.blocks(), chunk_rows), name="countmill-read")
                 for chunk in chunks:
                     rejects.write(chunk.rejects)
                     if len(chunk):
@@ -295,7 +300,8 @@ def run_conversion(
                     if progress is not None:
                         progress(reader.bytes_read, reader.total_bytes)
             finally:
-                chunks.close()
+                if chunks is not None:
+                    chunks.close()
             held, held_start, n = _release(converter, held, held_start, writer.put, final=True)
             rows_written += n
             data_lines = reader.data_lines
@@ -307,14 +313,16 @@ def run_conversion(
         sink.close()
         rejects_path = rejects.close()
     except BaseException:
-        sink = writer.stop()
+        sink = writer.stop() if writer is not None else None
         if sink is not None:
             sink.abort()
-        rejects.abort()
-        try:  # let the hash thread finish reading the source before the error goes up
-            digest.result()
-        except Exception:
-            pass
+        if rejects is not None:
+            rejects.abort()
+        if digest is not None:
+            try:  # let the hash thread finish reading the source before the error goes up
+                digest.result()
+            except Exception:
+                pass
         raise
     source_sha = digest.result()
     return ConversionResult(
