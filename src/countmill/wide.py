@@ -166,8 +166,7 @@ class WideSink:
     def __init__(self, final: Path, columns: WideColumns, every_us: int, settle_us: int, layout_info: dict, provenance: dict):
         self.final, self.columns, self.layout_info = final, columns, layout_info
         self.bins = TimeBins(len(columns.names), every_us, settle_us)
-        # (the provenance is written when the file closes: the source's hash may still be
-        # on its way while rows are written)
+        # (the provenance is written when the file closes, with the layout's late counts)
         self.provenance = {**provenance, "layout": layout_info}
         self.schema = columns.schema()
         self.late_samples: dict[str, int] = {}

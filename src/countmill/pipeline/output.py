@@ -134,8 +134,7 @@ def provenance_metadata(schema: pa.Schema, provenance: dict) -> dict[str, str]:
 
 class _TidySink:
     """What both tidy sinks keep: where the file goes, the name and unit tables, the
-    provenance (read when the file closes: the source's hash may still be on its way while
-    rows are written) and the tidy schema."""
+    provenance (written when the file closes) and the tidy schema."""
 
     def __init__(self, final: Path, names: list[str], units: list[str], provenance: dict):
         self.final = final
