@@ -340,6 +340,19 @@ chain = [{ stage = "thermocouple", type = "K", cold_junction = "junction" }]
 """
 
 
+def _tc_vs_linear_setup(folder: Path, n: int):
+    """The map of the thermocouple-against-linear comparisons and ``n`` samples of each
+    channel: cold-junction codes (about 20 degC) and the second channel's codes."""
+    from countmill.chanmap import load_map
+
+    path = folder / "tc-vs-linear.toml"
+    path.write_text(TC_MAP)
+    rng = np.random.default_rng(SEED)
+    junction = np.full(n, 4600) + rng.integers(-3, 4, n)
+    other = (2000 + 1500 * np.sin(np.arange(n) / 5000)).astype(np.int64) + rng.integers(-3, 4, n)
+    return load_map(path), junction, other
+
+
 def tc_vs_linear(folder: Path, records: int, repeat: int, stream: int = 6) -> dict:
     """Converter cost per record of a type K channel and of a linear channel.
 
@@ -352,19 +365,13 @@ def tc_vs_linear(folder: Path, records: int, repeat: int, stream: int = 6) -> di
     channel of the demo map has in a default chunk (250,000 records over 19 channels), the
     array length the converter works on in the main benchmark.
     """
-    from countmill.chanmap import load_map
     from countmill.pipeline.convert import Converter
     from countmill.pipeline.reader import Records
 
-    path = folder / "tc-vs-linear.toml"
-    path.write_text(TC_MAP)
-    cmap = load_map(path)
-    rng = np.random.default_rng(SEED)
     half = records // 2
     total = half * stream
+    cmap, junction_all, other_all = _tc_vs_linear_setup(folder, total)
     t_all = 1_790_000_000_000_000 + np.arange(total, dtype=np.int64) * 10_000
-    junction_all = np.full(total, 4600) + rng.integers(-3, 4, total)      # about 20 degC
-    other_all = (2000 + 1500 * np.sin(np.arange(total) / 5000)).astype(np.int64) + rng.integers(-3, 4, total)
 
     def chunk(channel_id: int | None, gain: int, k: int) -> Records:
         part = slice(k * half, (k + 1) * half)
@@ -424,18 +431,12 @@ def tc_vs_linear_files(folder: Path, lines: int, repeat: int) -> dict:
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
-    from countmill.chanmap import load_map
     from countmill.convert import convert_file
 
-    map_path = folder / "tc-vs-linear.toml"
-    map_path.write_text(TC_MAP)
-    cmap = load_map(map_path)
-    rng = np.random.default_rng(SEED)
     half = lines // 2
+    cmap, junction, other = _tc_vs_linear_setup(folder, half)
     start = np.datetime64("2026-11-03T00:00:00.000", "ms")
     t = start + np.arange(half, dtype=np.int64) * 10
-    junction = np.full(half, 4600) + rng.integers(-3, 4, half)
-    other = (2000 + 1500 * np.sin(np.arange(half) / 5000)).astype(np.int64) + rng.integers(-3, 4, half)
 
     def write(name: str, channel_id: int | None, gain: int) -> Path:
         path = folder / f"tc-vs-linear-{name}-{lines}.csv"
