@@ -244,8 +244,8 @@ def run_conversion(
     ``make_sink(converter, provenance)`` returns an object with ``write(rows)``, ``close()``
     and ``abort()``; it receives the tidy rows in input order, with their final flags. The
     source's SHA-256 is computed in a helper thread while the file is read; ``make_sink`` is
-    called (in the writer thread) once it is known, with it in
-    ``provenance["source"]["sha256"]``. Sinks write the provenance when they close.
+    called (in the writer thread) once it is known, with the whole provenance. Sinks write
+    the provenance when they close.
     """
     if not raw.exists():
         raise InputError(f"{raw}: no such file")
@@ -265,11 +265,9 @@ def run_conversion(
     # close, saved no measurable time, and a batch stopped by SIGTERM in the first moments
     # of a conversion then sometimes aborted at interpreter exit.)
     tally = _Tally(converter.names)
-    info = provenance(cmap, raw, "")
 
     def open_sink():
-        info["source"]["sha256"] = digest.result()
-        return make_sink(converter, info)
+        return make_sink(converter, provenance(cmap, raw, digest.result()))
 
     def write(sink, rows: Rows) -> None:
         sink.write(rows)
