@@ -67,9 +67,19 @@ THERMOCOUPLE_TYPES: tuple[str, ...] = _nist.TYPES
 #: logger's resolution): E(t) - E(t_cj) + E(t_cj) may miss E(t) by a few ulp.
 _EMF_ROUND_OFF_MV = 1e-9
 
-#: Newton steps after the NIST inverse polynomial. Its error is below 0.06 degC; one step
-#: leaves up to 1.5e-5 degC, two leave less than 2e-8 degC over every type's range.
+#: Newton steps after the NIST inverse polynomial where one second-order step will not do
+#: (see :func:`_temperature`). Its error is below 0.06 degC; one Newton step leaves up to
+#: 1.5e-5 degC, two leave less than 2e-8 degC over every type's range.
 _NEWTON_STEPS = 2
+
+#: Spacing of the slope table [degC]: a power of two, so that every interval starts exactly
+#: on a multiple of it from the whole-degree lower limit of the reference function.
+_SLOPE_STEP = 0.0625
+
+#: How far the refinement moves the first estimate at most [degC] (the inverse polynomial's
+#: error, 0.06 degC, rounded up): estimates that far inside one subrange of the reference
+#: function stay in it.
+_STEP_REACH = 0.1
 
 
 @dataclass(frozen=True)
@@ -85,8 +95,8 @@ class _TypeTables:
     e_max: float
     e_breaks: np.ndarray  # inner subrange limits of the inverse function [mV]
     d: tuple[np.ndarray, ...]  # inverse-function coefficients per subrange, ascending
-    # dE/dt [mV/degC] at the start of every one-degree interval from t_min, and its change
-    # over the interval: the Newton steps' slope by linear interpolation (see :func:`_slope`)
+    # dE/dt [mV/degC] at the start of every interval of _SLOPE_STEP from t_min, and its change
+    # over the interval: the refinement's slope by linear interpolation (see :func:`_slope`)
     slope_at: np.ndarray = field(default_factory=lambda: np.zeros(0))
     slope_change: np.ndarray = field(default_factory=lambda: np.zeros(0))
 
@@ -119,37 +129,43 @@ def _tables(letter: str) -> _TypeTables:
         d=tuple(np.array(r.d) for r in inv),
     )
     e_low, e_high = _emf_and_slope(np.array([partial.t_inv_min, partial.t_inv_max]), partial)[0]
-    # dE/dt at both ends of each one-degree interval, from the subrange polynomial that holds
-    # the interval's middle: where a subrange limit falls on a whole degree (0 degC for most
+    # dE/dt at both ends of each interval, from the subrange polynomial that holds the
+    # interval's middle: where a subrange limit falls on an interval's start (0 degC for most
     # types) the derivative steps, and an interval must not interpolate across the step
-    start = partial.t_min + np.arange(int(np.ceil(partial.t_max - partial.t_min)) + 1, dtype=np.float64)
-    piece = np.searchsorted(partial.t_breaks, start + 0.5, side="left")
+    count = int(np.ceil((partial.t_max - partial.t_min) / _SLOPE_STEP)) + 1
+    start = partial.t_min + _SLOPE_STEP * np.arange(count, dtype=np.float64)
+    piece = np.searchsorted(partial.t_breaks, start + _SLOPE_STEP / 2, side="left")
     slope_at, slope_end = np.empty_like(start), np.empty_like(start)
     for k in np.unique(piece).tolist():
         sel = piece == k
         slope_at[sel] = _subrange(start[sel], k, partial, slope=True)[1]
-        slope_end[sel] = _subrange(start[sel] + 1.0, k, partial, slope=True)[1]
+        slope_end[sel] = _subrange(start[sel] + _SLOPE_STEP, k, partial, slope=True)[1]
     return replace(partial, e_min=float(e_low), e_max=float(e_high), slope_at=slope_at,
                    slope_change=slope_end - slope_at)
 
 
-def _slope(t: np.ndarray, tab: _TypeTables) -> np.ndarray:
-    """dE/dt [mV/degC] near ``t``, interpolated linearly between whole degrees.
+def _slope(t: np.ndarray, tab: _TypeTables) -> tuple[np.ndarray, np.ndarray]:
+    """dE/dt [mV/degC] near ``t``, interpolated linearly in a table of spacing
+    :data:`_SLOPE_STEP`, and d2E/dt2 [mV/degC2] (the table interval's slope change over
+    its width).
 
-    Only the Newton steps use it: an error of the slope scales each step's correction, and
-    the table's (below 3e-5 relative, from the curvature of dE/dt over one degree; each
-    interval takes the subrange polynomial of its middle, so none interpolates across the
-    step of dE/dt at a subrange limit) leaves the two steps within 2e-8 degC; it costs a few
-    array passes instead of a second Horner scheme for the derivative. NaN in, NaN out.
+    Only the refinement uses them: an error of the slope scales each step's correction,
+    and the table's (below 2e-7 relative, from the curvature of dE/dt over one interval;
+    each interval takes the subrange polynomial of its middle, so none interpolates across
+    the step of dE/dt at a subrange limit) leaves the refined result within 2e-8 degC; it
+    costs a few array passes instead of a second Horner scheme for the derivative. NaN in,
+    NaN out.
     """
     position = t - tab.t_min
+    position *= 1.0 / _SLOPE_STEP
     with np.errstate(invalid="ignore"):
         whole = position.astype(np.intp)  # NaN casts to a huge negative: clipped below
     position -= whole
-    slope = np.take(tab.slope_change, whole, mode="clip")
-    slope *= position
+    change = np.take(tab.slope_change, whole, mode="clip")
+    slope = change * position
     slope += np.take(tab.slope_at, whole, mode="clip")
-    return slope
+    change *= 1.0 / _SLOPE_STEP
+    return slope, change
 
 
 def _horner(coefficients: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -329,19 +345,24 @@ def thermocouple_temperature(emf, *, type: str):
 
     .. math:: t_0 = \sum_{i=0}^{n} d_i\, E^i,
 
-    whose published error is at most 0.06 degC. Two Newton steps on the reference function
-    :math:`E(t)` of :func:`thermocouple_emf`, with its derivative (Seebeck coefficient)
-    :math:`S = dE/dt` taken once, at the first estimate,
+    whose published error is at most 0.06 degC. One step on the reference function
+    :math:`E(t)` of :func:`thermocouple_emf`, with its first and second derivatives
+    :math:`S = dE/dt` (Seebeck coefficient) and :math:`S' = d^2E/dt^2` at the first
+    estimate (Newton's step with its second-order term, Chebyshev's method),
 
-    .. math:: t_{k+1} = t_k - \frac{E(t_k) - E}{S(t_0)},
+    .. math:: u = \frac{E(t_0) - E}{S(t_0)}, \qquad
+              t_1 = t_0 - u - \frac{S'(t_0)}{2\, S(t_0)}\, u^2,
 
-    then make the result the inverse of the reference function: ``thermocouple_temperature(
+    then makes the result the inverse of the reference function: ``thermocouple_temperature(
     thermocouple_emf(t))`` returns ``t`` within 2e-8 degC over every type's inverse range.
+    Where a first estimate lies within 0.1 degC of a limit between the reference
+    function's subranges (its derivatives step there), two plain Newton steps
+    :math:`t_{k+1} = t_k - (E(t_k) - E)/S(t_0)` are taken instead, to the same accuracy.
     (At a few subrange limits NIST's neighbouring reference polynomials do not quite meet,
     so an emf there has two inverses and either may come back: 3.5e-7 degC apart for type B
     at 630.615 degC, 1.3e-7 for type R and 2.3e-8 for type S at 1664.5 degC.)
-    :math:`S(t_0)` is interpolated linearly in a table of the analytic derivative over
-    one-degree intervals (relative error below 3e-5, which the second step squares away).
+    :math:`S` and :math:`S'` come from a table of the analytic derivative at intervals of
+    1/16 degC, interpolated linearly (relative error of :math:`S` below 2e-7).
     The result is kept within the inverse function's temperature limits.
 
     References
@@ -362,21 +383,31 @@ def _temperature(e: np.ndarray, tab: _TypeTables) -> np.ndarray:
     if bounds is None:
         e[~((e >= tab.e_min - _EMF_ROUND_OFF_MV) & (e <= tab.e_max + _EMF_ROUND_OFF_MV))] = np.nan
     t = _inverse_polynomial(e, tab, bounds)
-    # Newton steps on the reference function, all with the slope at the first estimate
-    # (over the hundredths of a degree they move it changes by far less than the error
-    # left needs; the second step squares away its interpolation error, too)
-    s = _slope(t, tab)
-    # the steps move t by less than 0.1 degC: when the first estimates lie that far inside
-    # one subrange of the reference function, every step stays in it
-    piece = _one_subrange(t, tab.t_breaks, "left", _widened(t, 0.1))
-    for _ in range(_NEWTON_STEPS):
-        if piece is None:
+    s, curvature = _slope(t, tab)
+    # the refinement moves t by less than _STEP_REACH: when the first estimates lie that far
+    # inside one subrange of the reference function, it stays in it, where E is smooth
+    piece = _one_subrange(t, tab.t_breaks, "left", _widened(t, _STEP_REACH))
+    if piece is not None:
+        # one step with its second-order term: u (1 + S'/(2S) u), u the Newton step (the
+        # term is below 2e-5 degC; what it leaves is below 2e-8 degC)
+        u, _unused = _subrange(t, piece, tab, slope=False)
+        u -= e
+        u /= s
+        curvature /= s
+        curvature *= 0.5
+        curvature *= u
+        curvature += 1.0
+        u *= curvature
+        t -= u
+    else:
+        # near a subrange limit S' steps: Newton steps, all with the slope at the first
+        # estimate (over the hundredths of a degree they move it changes by far less than
+        # the error left needs)
+        for _ in range(_NEWTON_STEPS):
             f, _unused = _emf_and_slope(t, tab, slope=False)
-        else:
-            f, _unused = _subrange(t, piece, tab, slope=False)
-        f -= e
-        f /= s
-        t -= f
+            f -= e
+            f /= s
+            t -= f
     np.clip(t, tab.t_inv_min, tab.t_inv_max, out=t)
     return t
 
