@@ -117,9 +117,11 @@ class LatestValue:
             self._all_good = bool(np.all(self.quality == Quality.GOOD))
         # the last usable record on an earlier line: in this chunk (k >= 0) or the last
         # value of the history; and the newest time reached up to it
-        k = np.searchsorted(self.positions, positions, side="left") - 1
-        if len(self.times) and k.min() >= 0:  # all in this chunk
-            src_t = self.times[k]
+        k, first = self._preceding(positions)
+        if len(self.times) and (k.min() >= 0 if first is None else first >= 0):  # all in this chunk
+            # (consecutive values: slices instead of gathers)
+            taken = k if first is None else slice(first, first + len(k))
+            src_t = self.times[taken]
             if self._ordered:
                 # no clock step back: the newest time reached is the value's own time,
                 # which the history window (newest - HISTORY_SECONDS) always admits
@@ -129,7 +131,12 @@ class LatestValue:
                 lo = np.maximum(times - max_age_us, newest - HISTORY_SECONDS * _US)
                 direct = (src_t <= times) & (src_t >= lo)
             if direct.all():  # the common case: the last earlier value is the one
-                return self.values[k], (None if self._all_good else self.quality[k])
+                values = self.values[taken]
+                quality = None if self._all_good else self.quality[taken]
+                if first is not None:  # views of the state: the caller gets its own copies
+                    values = values.copy()
+                    quality = None if quality is None else quality.copy()
+                return values, quality
         out_v = np.full(len(positions), np.nan)
         out_q = np.full(len(positions), Quality.MISSING, dtype=np.int8)
         here = k >= 0
@@ -159,6 +166,29 @@ class LatestValue:
             if found is not None:
                 out_v[i], out_q[i] = found
         return out_v, out_q
+
+    def _preceding(self, positions: np.ndarray) -> tuple[np.ndarray, int | None]:
+        """For each record at ``positions`` (ascending), the index of this chunk's last value
+        on an earlier line (-1: none in this chunk); and, when those indices are consecutive,
+        the first of them.
+
+        A logger that reads the input once per scan, as often as it reads the record's
+        channel (a terminal-block sensor read once per scan for each thermocouple channel),
+        makes them consecutive: index i + first for the i-th record. That guess is checked
+        with two comparisons of slices; only when it fails is every record searched for.
+        """
+        have = self.positions
+        m, h = len(positions), len(have)
+        if m and h:
+            first = int(np.searchsorted(have, positions[0], side="left")) - 1
+            last = first + m - 1
+            if last < h:
+                # value k_i before record i, and value k_i + 1 (where there is one) after it
+                before = have[max(first, 0): last + 1] < positions[max(-first, 0):]
+                after = have[first + 1: last + 2] > positions[: h - first - 1]
+                if before.all() and after.all():
+                    return np.arange(first, last + 1), first
+        return np.searchsorted(have, positions, side="left") - 1, None
 
     def _search(self, k: int, low: int, high: int):
         """(value, quality) of the last record before the one at chunk index ``k`` (or, for
