@@ -65,7 +65,15 @@ class _Stretch:
     values: np.ndarray
     quality: np.ndarray
     newest: int
-    runs: np.ndarray
+    _runs: np.ndarray | None = None
+
+    @property
+    def runs(self) -> np.ndarray:
+        """Starts of its stretches of non-decreasing times (made when a search first needs
+        them: only a clock step back does)."""
+        if self._runs is None:
+            self._runs = _run_starts(self.times)
+        return self._runs
 
 
 @dataclass
@@ -110,10 +118,9 @@ class LatestValue:
         """
         if (not self.history and len(self.times) == 0) or len(positions) == 0:
             return np.full(len(positions), np.nan), np.full(len(positions), Quality.MISSING, dtype=np.int8)
-        if self._newest_so_far is None:
-            self._newest_so_far = np.maximum.accumulate(self.times) if len(self.times) else _empty()
-            self._ordered = bool(len(self.times)) and self.times[0] >= self.hist_newest and bool(
-                np.all(self._newest_so_far == self.times))
+        if self._ordered is None:
+            own = self.times
+            self._ordered = bool(len(own)) and own[0] >= self.hist_newest and bool(np.all(own[1:] >= own[:-1]))
             self._all_good = bool(np.all(self.quality == Quality.GOOD))
         # the last usable record on an earlier line: in this chunk (k >= 0) or the last
         # value of the history; and the newest time reached up to it
@@ -127,7 +134,7 @@ class LatestValue:
                 # which the history window (newest - HISTORY_SECONDS) always admits
                 direct = (src_t <= times) & (src_t >= times - max_age_us)
             else:
-                newest = np.maximum(self._newest_so_far[k], self.hist_newest)
+                newest = np.maximum(self._newest_reached()[k], self.hist_newest)
                 lo = np.maximum(times - max_age_us, newest - HISTORY_SECONDS * _US)
                 direct = (src_t <= times) & (src_t >= lo)
             if direct.all():  # the common case: the last earlier value is the one
@@ -143,7 +150,7 @@ class LatestValue:
         ks = np.maximum(k, 0)
         newest = np.full(len(positions), self.hist_newest, dtype=np.int64)
         if len(self.times):
-            newest[here] = np.maximum(self.hist_newest, self._newest_so_far[ks[here]])
+            newest[here] = np.maximum(self.hist_newest, self._newest_reached()[ks[here]])
         have = here | bool(self.history)
         lo = np.maximum(times - max_age_us, newest - HISTORY_SECONDS * _US)
         if len(self.times):
@@ -166,6 +173,12 @@ class LatestValue:
             if found is not None:
                 out_v[i], out_q[i] = found
         return out_v, out_q
+
+    def _newest_reached(self) -> np.ndarray:
+        """Running maximum of this chunk's times (made when a lookup first needs it)."""
+        if self._newest_so_far is None:
+            self._newest_so_far = np.maximum.accumulate(self.times) if len(self.times) else _empty()
+        return self._newest_so_far
 
     def _preceding(self, positions: np.ndarray) -> tuple[np.ndarray, int | None]:
         """For each record at ``positions`` (ascending), the index of this chunk's last value
@@ -210,7 +223,7 @@ class LatestValue:
         """Fold this chunk into the carried history and drop what no lookup can take."""
         if len(self.times):
             newest = int(self.times.max())
-            self.history.append(_Stretch(self.times, self.values, self.quality, newest, _run_starts(self.times)))
+            self.history.append(_Stretch(self.times, self.values, self.quality, newest))
             self.hist_newest = max(self.hist_newest, newest)
             oldest_useful = self.hist_newest - HISTORY_SECONDS * _US
             while self.history and self.history[0].newest < oldest_useful:

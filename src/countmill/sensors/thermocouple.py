@@ -244,11 +244,17 @@ def _subrange(x: np.ndarray, k: int, tab: _TypeTables, slope: bool) -> tuple[np.
             p += ci
     if tab.exponential is not None and k == len(tab.c) - 1:
         a0, a1, a2 = tab.exponential
-        offset = x - a2
-        g = a0 * np.exp(a1 * np.square(offset))
-        p += g
+        offset = np.subtract(x, a2, out=np.empty_like(x))  # (an array even when x is 0-d)
         if slope:
+            g = a0 * np.exp(a1 * np.square(offset))
+            p += g
             dp += g * (2.0 * a1) * offset
+        else:  # in place: one array for the whole term
+            np.square(offset, out=offset)
+            offset *= a1
+            np.exp(offset, out=offset)
+            offset *= a0
+            p += offset
     return p, dp
 
 
