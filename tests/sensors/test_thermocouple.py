@@ -204,6 +204,38 @@ def test_cold_junction_matches_thermocouple_its90(letter, t_cj):
     np.testing.assert_allclose(got, t[ok], rtol=0, atol=1e-6)
 
 
+@pytest.mark.parametrize("letter", TYPES)
+def test_cold_junction_per_record_matches_thermocouple_its90(letter):
+    # A cold junction read per record (an array, as from a terminal-block channel) takes
+    # E(t_cj) from the slope table when every reading lies inside one subrange: the same
+    # temperatures as thermocouple-its90 (1e-6 degC) and as our polynomials (2e-8 degC).
+    other = thermocouple_its90.get(letter)
+    rng = np.random.default_rng(7)
+    t_cj = rng.uniform(15.0, 35.0, 400)
+    t_low, t_high = INVERSE_T_RANGE[letter]
+    t = rng.uniform(max(t_low, 100.0), t_high, 400)
+    measured = thermocouple_emf(t, type=letter) - thermocouple_emf(t_cj, type=letter)
+    got = cold_junction_compensated_temperature(measured, t_cj, type=letter)
+    expected = np.array([other.temperature(float(m), reference=float(c)) for m, c in zip(measured, t_cj)])
+    np.testing.assert_allclose(got, expected, rtol=0, atol=1e-6)
+    one_by_one = np.array([cold_junction_compensated_temperature(m, c, type=letter) for m, c in zip(measured, t_cj)])
+    np.testing.assert_allclose(got, one_by_one, rtol=0, atol=2e-8)
+
+
+def test_cold_junction_per_record_outside_the_reference_range_or_across_a_limit():
+    # NaN for a reading outside the reference function (never a clamped table value); a
+    # set of readings across a subrange limit (0 degC) converts as each one alone does
+    measured = np.full(4, 4.0)
+    out = cold_junction_compensated_temperature(measured, np.array([20.0, np.nan, 2000.0, -300.0]), type="K")
+    # (the two ways of refining agree within their 2e-8 degC of the exact inverse)
+    assert out[0] == pytest.approx(cold_junction_compensated_temperature(4.0, 20.0, type="K"), abs=2e-8)
+    assert np.isnan(out[1:]).all()
+    across = np.array([-0.5, -0.01, 0.0, 0.01, 0.5])
+    got = cold_junction_compensated_temperature(np.full(5, 4.0), across, type="K")
+    alone = [cold_junction_compensated_temperature(4.0, c, type="K") for c in across]
+    np.testing.assert_allclose(got, alone, rtol=0, atol=2e-8)
+
+
 # --- round trip, ranges, shapes ----------------------------------------------------------
 
 @pytest.mark.parametrize("letter", TYPES)
