@@ -39,9 +39,11 @@ class ChannelChunk:
     def grouped(cls, rec: Records) -> "ChannelChunk":
         channel = rec.channel
         n = len(channel)
-        if n and 0 <= int(channel.min()) and int(channel.max()) < 1 << 16:
-            key = channel.astype(np.uint16)
-            order = np.argsort(key, kind="stable")  # a radix sort for 16-bit keys
+        low, high = (int(channel.min()), int(channel.max())) if n else (0, 0)
+        if n and 0 <= low and high < 1 << 16:
+            # numpy sorts 8- and 16-bit keys stably by radix (8-bit: one counting pass)
+            key = channel.astype(np.uint8 if high < 1 << 8 else np.uint16)
+            order = np.argsort(key, kind="stable")
             counts = np.bincount(key)
             ids = np.flatnonzero(counts)
             stops = np.cumsum(counts)[ids]

@@ -156,7 +156,9 @@ class ParquetSink(_TidySink):
             # times and line numbers climb by small steps: delta encoding makes them almost
             # free to write and store (a Parquet 2 encoding every current reader knows)
             column_encoding={"time": "DELTA_BINARY_PACKED", "line": "DELTA_BINARY_PACKED"},
-            write_statistics=["time", "line", "channel", "quality"],
+            # min/max per row group where a reader can skip row groups by them (a time or
+            # line range); every row group holds every channel and most quality levels
+            write_statistics=["time", "line"],
         )
         self._pending: list[pa.Table] = []
         self._pending_rows = 0
