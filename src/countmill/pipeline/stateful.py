@@ -244,7 +244,79 @@ class FlatWindow:
         return flat
 
     def _keep(self, mono: np.ndarray, values: np.ndarray, tolerance: float, span_us: int) -> None:
-        """Fold this call's values into the steps and drop the steps no later record needs."""
+        """Fold this call's values into the steps and drop the steps no later record needs.
+
+        The same steps as :meth:`_keep_all_steps`, without making the suffix extremes of
+        every value: the steps kept are those with a spread within twice the tolerance, a
+        tail of the call's values (the spread of a suffix only shrinks as it starts later),
+        so only that tail is looked at. A moving or noisy channel keeps a short tail; a
+        flat one the whole call, as before.
+        """
+        n = len(values)
+        top, bottom = values.max(), values.min()
+        if not (np.isfinite(top) and np.isfinite(bottom)):
+            return self._keep_all_steps(mono, values, tolerance, span_us)
+        with np.errstate(invalid="ignore"):
+            threshold = 2.0 * tolerance * (1.0 + 1e-9) + 1e-300
+        # tail: the first call value whose suffix has a spread within the threshold
+        if top - bottom <= threshold:
+            tail = 0
+        else:
+            wide, narrow, length = 0, n - 1, 1  # suffix at ``wide`` too wide, at ``narrow`` not
+            while length < n:  # from the end, doubling, then halving the bracket
+                i = n - length
+                if values[i:].max() - values[i:].min() > threshold:
+                    wide = i
+                    break
+                narrow = i
+                length *= 2
+            while narrow - wide > 1:
+                mid = (wide + narrow) // 2
+                if values[mid:].max() - values[mid:].min() > threshold:
+                    wide = mid
+                else:
+                    narrow = mid
+            tail = narrow
+        old = len(self.starts)
+        old_high = np.maximum(self.high, top)
+        old_low = np.minimum(self.low, bottom)
+        # steps are the old ones, then one per call value: index old + i for value i
+        with np.errstate(invalid="ignore"):
+            old_wide = int(np.count_nonzero(old_high - old_low > threshold))
+        narrow_from = old + tail if tail > 0 else old_wide  # first step within the threshold
+        self.last_time_us = int(mono[-1])
+        cut = mono[-1] - span_us  # every later window starts at or after it
+        first = int(np.searchsorted(self.starts, cut, side="left"))
+        if first == old:
+            first = old + int(np.searchsorted(mono, cut, side="left"))
+        if self.dropped_until is not None and self.dropped_until < cut:
+            self.dropped_until = None  # no later window reaches that far back
+        if narrow_from > first:
+            last_wide = narrow_from - 1
+            self.dropped_until = int(self.starts[last_wide] if last_wide < old else mono[last_wide - old])
+            first = narrow_from
+        from_call = max(first - old, 0)
+        rest = values[from_call:]
+        suffix_hi = np.maximum.accumulate(rest[::-1])[::-1]
+        suffix_lo = np.minimum.accumulate(rest[::-1])[::-1]
+        if first < old:
+            starts = np.concatenate([self.starts[first:], mono])
+            high = np.concatenate([old_high[first:], suffix_hi])
+            low = np.concatenate([old_low[first:], suffix_lo])
+        else:
+            starts, high, low = mono[from_call:], suffix_hi, suffix_lo
+        self._set_steps(starts, high, low)
+
+    def _set_steps(self, starts: np.ndarray, high: np.ndarray, low: np.ndarray) -> None:
+        if len(starts) > 1:
+            # equal suffix extremes: keep the *last* start of a run (a window starting
+            # anywhere in the run sees the same extremes from the run's last start on...)
+            new = np.concatenate(((high[1:] != high[:-1]) | (low[1:] != low[:-1]), [True]))
+            starts, high, low = starts[new], high[new], low[new]
+        self.starts, self.high, self.low = starts.copy(), high.copy(), low.copy()
+
+    def _keep_all_steps(self, mono: np.ndarray, values: np.ndarray, tolerance: float, span_us: int) -> None:
+        """:meth:`_keep` from the suffix extremes of every value (any values, also infinite)."""
         suffix_hi = np.maximum.accumulate(values[::-1])[::-1]
         suffix_lo = np.minimum.accumulate(values[::-1])[::-1]
         starts = np.concatenate([self.starts, mono])
@@ -263,13 +335,7 @@ class FlatWindow:
         if wide:
             self.dropped_until = int(starts[first + wide - 1])
             first += wide
-        starts, high, low = starts[first:], high[first:], low[first:]
-        if len(starts) > 1:
-            # equal suffix extremes: keep the *last* start of a run (a window starting
-            # anywhere in the run sees the same extremes from the run's last start on...)
-            new = np.concatenate(((high[1:] != high[:-1]) | (low[1:] != low[:-1]), [True]))
-            starts, high, low = starts[new], high[new], low[new]
-        self.starts, self.high, self.low = starts.copy(), high.copy(), low.copy()
+        self._set_steps(starts[first:], high[first:], low[first:])
 
 
 def range_min_max(x: np.ndarray, start: np.ndarray, stop: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
