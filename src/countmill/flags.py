@@ -131,12 +131,17 @@ def combine_quality(values: np.ndarray, flags: np.ndarray, evaluated: np.ndarray
         set, 1 if a test ran, 2 otherwise.
     """
     flags = np.asarray(flags, dtype=np.int64)
-    quality = np.where(np.asarray(evaluated, dtype=bool), Quality.GOOD, Quality.NOT_EVALUATED)
-    quality = np.broadcast_to(quality, flags.shape).astype(np.int8)
-    quality = np.where((flags & SUSPECT_MASK) != 0, np.int8(Quality.SUSPECT), quality)
-    quality = np.where((flags & BAD_MASK) != 0, np.int8(Quality.BAD), quality)
-    quality = np.where(np.isnan(values), np.int8(Quality.MISSING), quality)
-    return quality.astype(np.int8)
+    quality = np.where(np.asarray(evaluated, dtype=bool), np.int8(Quality.GOOD), np.int8(Quality.NOT_EVALUATED))
+    if quality.shape != flags.shape:
+        quality = np.broadcast_to(quality, flags.shape).copy()
+    # levels in rising order, each over the last (in place; a level no row has is skipped)
+    present = int(np.bitwise_or.reduce(flags, axis=None)) if flags.size else 0
+    if present & SUSPECT_MASK:
+        np.copyto(quality, np.int8(Quality.SUSPECT), where=(flags & SUSPECT_MASK) != 0)
+    if present & BAD_MASK:
+        np.copyto(quality, np.int8(Quality.BAD), where=(flags & BAD_MASK) != 0)
+    np.copyto(quality, np.int8(Quality.MISSING), where=np.isnan(values))
+    return quality
 
 
 def decode(flags) -> "list[list[str]] | list[str]":
