@@ -1,8 +1,8 @@
 """The output does not depend on ``--chunk-rows`` (contract §2, §6).
 
 State that crosses chunk boundaries (spike decisions waiting for the next value, rate and
-flat-line history, time order, the latest value of a derived channel's inputs, the
-fall-back hour of the clock) must give the same rows and flags for every chunk size. A
+flat-line history, time order, the latest value of a derived channel's or a thermocouple's
+inputs, the fall-back hour of the clock) must give the same rows and flags for every chunk size. A
 hypothesis property test draws small logs with all of these and compares a random chunk size
 against the default one; explicit runs compare ``--chunk-rows`` 1, 7 and 1000 through the
 command line.
@@ -39,6 +39,11 @@ CHANNELS = [
     {"id": 2, "name": "supply", "unit": "V", "from": dt.datetime(2026, 2, 1, 6, 3), "chain": [{"stage": "linear", "slope": 2.0}],
      "qc": {"spike": 20.0}},
     {"id": 3, "name": "amps", "unit": "A", "chain": [{"stage": "linear", "slope": 0.1, "unit": "A"}]},
+    # a type K thermocouple on the tank channel as its cold junction: -10 ... +60 mV reaches
+    # below 0 degC (a subrange limit of the reference function), the top of the range and
+    # beyond, so records of one chunk take different ways through the inverse
+    {"id": 4, "name": "flue", "unit": "degC", "adc": {"bits": 8, "span": [-0.01, 0.06], "coding": "straight"},
+     "chain": [{"stage": "thermocouple", "type": "K", "cold_junction": "tank", "max_age": 30}]},
 ]
 DERIVED = [
     {"name": "power", "unit": "kW", "expression": "supply * amps / 1000", "max_age": 30, "qc": {"spike": 0.2, "rate": 0.5}},
@@ -56,7 +61,7 @@ BAD_LINES = [
 ]
 
 record = st.tuples(
-    st.sampled_from([1, 1, 1, 2, 2, 3, 3, 9]),  # channel (9 is not in the map)
+    st.sampled_from([1, 1, 1, 2, 2, 3, 3, 4, 4, 9]),  # channel (9 is not in the map)
     st.one_of(st.integers(1, 254), st.sampled_from([0, 255, 256, 40, 40, 40])),  # code: rails, invalid, repeats
     st.sampled_from([0, 0, 0, 0, 1, 7]),  # gain code (7 unknown)
     st.sampled_from([-20, -3, 0, 0, 1, 2, 3, 5, 10, 10, 17, 40]),  # seconds since the previous line
@@ -127,7 +132,7 @@ def busy_log(seed: int, n: int = 400) -> list:
         elif roll < 0.08:
             drawn.append(("skip", "# comment"))
         else:
-            drawn.append(("record", (rng.choice([1, 1, 2, 3, 9]), rng.choice([rng.randint(1, 254), 40, 0, 255, 256]),
+            drawn.append(("record", (rng.choice([1, 1, 2, 3, 4, 9]), rng.choice([rng.randint(1, 254), 40, 0, 255, 256]),
                                      rng.choice([0, 0, 0, 1, 7]), rng.choice([-3, 0, 1, 2, 5, 10, 20]))))
     return render(drawn)
 

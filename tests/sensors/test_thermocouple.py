@@ -429,3 +429,26 @@ def test_stage_nan_passthrough_and_outside_model():
     # reference function.
     np.testing.assert_array_equal(outside, [False, False, False, True, True, True])
     assert result.flags.dtype == np.int64 and result.values.dtype == np.float64
+
+
+# --- value by value: a result does not depend on the rest of the array ---------------------
+
+@pytest.mark.parametrize("letter", TYPES)
+def test_each_value_converts_alone_as_in_any_array(letter):
+    # A conversion cuts its records into chunks of any size (contract §2: the output does
+    # not depend on it), so a value must come out bit for bit the same alone or beside
+    # values near a subrange limit, NaN or out of range (which take other ways).
+    from countmill.sensors._nist_its90 import REFERENCE
+
+    rng = np.random.default_rng(11)
+    t_low, t_high = INVERSE_T_RANGE[letter]
+    limits = [r.t_high for r in REFERENCE[letter][:-1] if t_low < r.t_high < t_high]
+    t = np.concatenate([rng.uniform(t_low, t_high, 60), np.array(limits) + 0.03, [t_low + 0.01, t_high - 0.01]])
+    e = np.concatenate([thermocouple_emf(t, type=letter), [np.nan, np.inf, -1e3, 1e3]])
+    together = thermocouple_temperature(e, type=letter)
+    alone = np.array([thermocouple_temperature(np.array([x]), type=letter)[0] for x in e])
+    np.testing.assert_array_equal(together, alone)
+    t_cj = np.concatenate([rng.uniform(15.0, 35.0, len(e) - 4), [np.nan, 0.02, -300.0, 2000.0]])
+    together = cold_junction_compensated_temperature(e, t_cj, type=letter)
+    alone = [cold_junction_compensated_temperature(np.array([x]), np.array([c]), type=letter)[0] for x, c in zip(e, t_cj)]
+    np.testing.assert_array_equal(together, np.array(alone))

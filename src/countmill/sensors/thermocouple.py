@@ -5,8 +5,9 @@ Three vectorised models on plain float64 arrays:
 * :func:`thermocouple_emf`: hot-junction temperature [degC] -> emf [mV], reference
   junction at 0 degC, by the NIST ITS-90 reference functions;
 * :func:`thermocouple_temperature`: emf [mV] (reference junction at 0 degC) -> temperature
-  [degC], by the NIST inverse polynomial refined with Newton steps on the reference function,
-  so that the result is the exact inverse of :func:`thermocouple_emf`;
+  [degC], by the NIST inverse polynomial refined on the reference function (one
+  second-order step, or Newton steps near a subrange limit), so that the result is the
+  inverse of :func:`thermocouple_emf` within 2e-8 degC;
 * :func:`cold_junction_compensated_temperature`: measured emf [mV] with the reference
   junction at a known temperature [degC] -> hot-junction temperature [degC].
 
@@ -184,7 +185,7 @@ def _emf_near(interval, tab: _TypeTables) -> np.ndarray:
 
     (the neglected term is below h^3 |d3E/dt3| / 12, h = 1/16 degC): within 1e-10 mV of the
     reference polynomial over each type's inverse range, 1e-9 mV down to -270 degC (at most
-    2e-9 degC of temperature in the inverse range, observed on dense grids). Only for points
+    about 2e-9 degC of temperature in the inverse range, observed on dense grids). Only for points
     at least one interval away from every subrange limit, where E is smooth.
     """
     whole, fraction = interval
@@ -392,8 +393,10 @@ def thermocouple_temperature(emf, *, type: str):
     then makes the result the inverse of the reference function: ``thermocouple_temperature(
     thermocouple_emf(t))`` returns ``t`` within 2e-8 degC over every type's inverse range.
     Where a first estimate lies within 0.1 degC of a limit between the reference
-    function's subranges (its derivatives step there), two plain Newton steps
-    :math:`t_{k+1} = t_k - (E(t_k) - E)/S(t_0)` are taken instead, to the same accuracy.
+    function's subranges (its derivatives step there) or of its ends, two plain Newton steps
+    :math:`t_{k+1} = t_k - (E(t_k) - E)/S(t_0)` on the polynomials are taken instead, to the
+    same accuracy. The choice is made value by value: a value converts the same whatever
+    else is in the array.
     (At a few subrange limits NIST's neighbouring reference polynomials do not quite meet,
     so an emf there has two inverses and either may come back: 3.5e-7 degC apart for type B
     at 630.615 degC, 1.3e-7 for type R and 2.3e-8 for type S at 1664.5 degC.)
@@ -417,38 +420,68 @@ def thermocouple_temperature(emf, *, type: str):
 
 
 def _temperature(e: np.ndarray, tab: _TypeTables) -> np.ndarray:
-    """:func:`thermocouple_temperature` on an emf array [mV] it may overwrite."""
+    """:func:`thermocouple_temperature` on an emf array [mV] it may overwrite.
+
+    Each value's way (one second-order step, or Newton steps near a subrange limit) depends
+    on that value alone, never on the others in the array: a conversion's result must not
+    depend on how its records are cut into chunks.
+    """
+    shape = e.shape
+    e = e.reshape(-1)  # (one dimension: in-place steps work on a single value too)
     bounds = _bounds_within(e, tab.e_min - _EMF_ROUND_OFF_MV, tab.e_max + _EMF_ROUND_OFF_MV)
     if bounds is None:
         e[~((e >= tab.e_min - _EMF_ROUND_OFF_MV) & (e <= tab.e_max + _EMF_ROUND_OFF_MV))] = np.nan
-    t = _inverse_polynomial(e, tab, bounds)
-    interval = _interval(t, tab)
-    s, curvature = _slope(t, tab, interval)
-    # the refinement moves t by less than _STEP_REACH: when the first estimates lie that far
-    # inside one subrange of the reference function, it stays in it, where E is smooth
-    if _one_subrange(t, tab.t_breaks, "left", _widened(t, _STEP_REACH)) is not None:
-        # one step with its second-order term: u (1 + S'/(2S) u), u the Newton step (the
-        # term is below 2e-5 degC; what it leaves is below 2e-8 degC); E(t0) from the table
-        u = _emf_near(interval, tab)
-        u -= e
-        u /= s
-        curvature /= s
-        curvature *= 0.5
-        curvature *= u
-        curvature += 1.0
-        u *= curvature
-        t -= u
-    else:
-        # near a subrange limit S' steps: Newton steps, all with the slope at the first
-        # estimate (over the hundredths of a degree they move it changes by far less than
-        # the error left needs)
+    t0 = _inverse_polynomial(e, tab, bounds)
+    interval = _interval(t0, tab)
+    s, curvature = _slope(t0, tab, interval)
+    # one step with its second-order term: u (1 + S'/(2S) u), u the Newton step (the term is
+    # below 2e-5 degC; what it leaves is below 2e-8 degC), E(t0) from the table. It holds
+    # where t0 lies _STEP_REACH inside a subrange of the reference function, which the step
+    # (less than 0.06 degC) does not leave, and where E is smooth.
+    u = _emf_near(interval, tab)
+    u -= e
+    u /= s
+    curvature /= s
+    curvature *= 0.5
+    curvature *= u
+    curvature += 1.0
+    u *= curvature
+    t = t0 - u
+    near = _near_limits(t0, tab)
+    if near is not None:
+        # near a limit dE/dt steps: Newton steps on the reference polynomials, all with the
+        # slope at the first estimate (over the hundredths of a degree they move it changes
+        # by far less than the error left needs)
+        tn, en, sn = t0[near], e[near], s[near]
         for _ in range(_NEWTON_STEPS):
-            f, _unused = _emf_and_slope(t, tab, slope=False)
-            f -= e
-            f /= s
-            t -= f
+            f, _unused = _emf_and_slope(tn, tab, slope=False)
+            f -= en
+            f /= sn
+            tn -= f
+        t[near] = tn
     np.clip(t, tab.t_inv_min, tab.t_inv_max, out=t)
-    return t
+    return t.reshape(shape)
+
+
+def _near_limits(t: np.ndarray, tab: _TypeTables) -> np.ndarray | None:
+    """Indices of the values within :data:`_STEP_REACH` of a subrange limit or an end of the
+    reference function (where the table does not hold), or None when there are none. NaN
+    is near nothing."""
+    if t.size == 0:
+        return None
+    low, high = t.min(), t.max()
+    if (
+        low >= tab.t_min + _STEP_REACH
+        and high <= tab.t_max - _STEP_REACH
+        and _one_subrange(t, tab.t_breaks, "left", (low - _STEP_REACH, high + _STEP_REACH)) is not None
+    ):
+        return None  # (all inside one subrange; NaN fails the comparisons above)
+    with np.errstate(invalid="ignore"):
+        near = (t < tab.t_min + _STEP_REACH) | (t > tab.t_max - _STEP_REACH)
+        for limit in tab.t_breaks.tolist():
+            near |= np.abs(t - limit) < _STEP_REACH
+    index = np.flatnonzero(near)
+    return index if len(index) else None
 
 
 def _inverse_polynomial(e: np.ndarray, tab: _TypeTables, bounds=None) -> np.ndarray:
@@ -522,10 +555,11 @@ def cold_junction_compensated_temperature(emf_measured_mV, t_cold_junction, *, t
 
     .. math:: t = E^{-1}\left(E_\mathrm{measured} + E(t_\mathrm{cj})\right).
 
-    When ``t_cold_junction`` is an array whose values all lie inside one subrange of the
-    reference function (0.1 degC from its limits; a terminal block near room temperature),
-    :math:`E(t_\mathrm{cj})` is taken from the slope table of :func:`thermocouple_temperature`
-    (within 1e-10 mV of the polynomial); otherwise from the polynomial.
+    For the values of an array ``t_cold_junction`` that lie 0.1 degC inside a subrange of
+    the reference function (a terminal block near room temperature), :math:`E(t_\mathrm{cj})`
+    is taken from the slope table of :func:`thermocouple_temperature`: within 1e-10 mV of the
+    polynomial from -200 degC up, 1e-9 mV below. Other values, and a single number, take
+    the polynomial. The choice is made value by value.
 
     References
     ----------
@@ -535,11 +569,13 @@ def cold_junction_compensated_temperature(emf_measured_mV, t_cold_junction, *, t
     """
     tab = _tables(_letter(type))
     t_cj = np.asarray(t_cold_junction, dtype=np.float64)
-    bounds = _bounds_within(t_cj, tab.t_min, tab.t_max) if t_cj.ndim else None
-    if bounds is not None and _one_subrange(
-        t_cj, tab.t_breaks, "left", (bounds[0] - _STEP_REACH, bounds[1] + _STEP_REACH)
-    ) is not None:
-        e_cj = _emf_near(_interval(t_cj, tab), tab)  # inside one subrange: the table will do
+    if t_cj.ndim:
+        # E(t_cj) from the table where t_cj lies inside a subrange (a terminal block near room
+        # temperature), from the polynomials elsewhere: decided value by value
+        e_cj = _emf_near(_interval(t_cj, tab), tab)
+        near = _near_limits(t_cj, tab)
+        if near is not None:
+            e_cj[near] = thermocouple_emf(t_cj[near], type=type)
     else:
         e_cj = thermocouple_emf(t_cj, type=type)
     e = np.add(np.asarray(emf_measured_mV, dtype=np.float64), e_cj)
