@@ -132,8 +132,9 @@ def combine_quality(values: np.ndarray, flags: np.ndarray, evaluated: np.ndarray
     """
     flags = np.asarray(flags, dtype=np.int64)
     quality = np.where(np.asarray(evaluated, dtype=bool), np.int8(Quality.GOOD), np.int8(Quality.NOT_EVALUATED))
-    if quality.shape != flags.shape:
-        quality = np.broadcast_to(quality, flags.shape).copy()
+    shape = np.broadcast_shapes(np.shape(values), flags.shape, quality.shape)
+    if quality.shape != shape:
+        quality = np.broadcast_to(quality, shape).copy()
     # levels in rising order, each over the last (in place; a level no row has is skipped)
     present = int(np.bitwise_or.reduce(flags, axis=None)) if flags.size else 0
     if present & SUSPECT_MASK:
