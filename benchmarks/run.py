@@ -21,7 +21,9 @@ loops, a derived channel; ISO local times with milliseconds), cached in
 * ``read text`` / ``read binary``: the readers alone (records out, nothing converted);
 * the script a user would otherwise write: pandas ``read_csv`` plus a per-row Python
   function (``DataFrame.apply(axis=1)``: ADC code to volts, gain, linear / RTD /
-  thermistor / loop maths) and ``to_parquet``, timed on a slice and scaled to the file;
+  thermistor / loop maths) and ``to_parquet``, timed on two slices (one twice as long as
+  the other) and scaled to the file: the difference gives the cost per line, what is left
+  is fixed and counted once;
 * the CLI start-up (``countmill convert`` of a 100-line file, as its own process);
 * peak resident memory of each conversion in its own process, at two file sizes four times
   apart (``os.wait4`` gives the child's own ``ru_maxrss``);
@@ -227,6 +229,7 @@ def main(argv: list[str] | None = None) -> int:
         csv, binary = main_files["csv"], main_files["binary"]
         large_csv = files[4 * lines]["csv"]
         csv_slice = write_slice(csv, slice_rows, out / "slice.csv")
+        csv_slice_2 = write_slice(csv, 2 * slice_rows, out / "slice-2.csv")
         params = per_row_params(MAP)
         steps = {
             "convert": lambda: step_convert(csv, cmap, out / "convert.parquet"),
@@ -235,6 +238,9 @@ def main(argv: list[str] | None = None) -> int:
             "read_text": lambda: step_read(csv, cmap.input, cmap.timezone),
             "read_binary": lambda: step_read(binary, binmap.input, binmap.timezone),
             "per_row_slice": lambda: per_row_script(csv_slice, params, out / "per-row.parquet"),
+            # twice the slice: the per-line cost is the difference, what is left of the first
+            # slice's time is fixed (reading the map, starting pandas' machinery, the file)
+            "per_row_slice_2": lambda: per_row_script(csv_slice_2, params, out / "per-row-2.parquet"),
             # the contract's own terms: a file of ten million lines or more
             "convert_large": lambda: step_convert(large_csv, cmap, out / "convert-large.parquet"),
             "transcode_large": lambda: step_transcode(large_csv, out / "transcode-large.parquet"),
@@ -258,7 +264,6 @@ def main(argv: list[str] | None = None) -> int:
                 and counts["convert"] == counts["convert_binary"] and counts["transcode_large"] == 4 * lines)
         if not same:
             raise SystemExit(f"the steps did not see the same records: {counts}")
-        scale = data_lines / counts["per_row_slice"]
         tc = tc_vs_linear(out, 20_000 if args.quick else 2 * (DEFAULT_CHUNK_ROWS // len(cmap.channels)), repeat)
         tc["end_to_end"] = tc_vs_linear_files(args.data, 20_000 if args.quick else 1_000_000, repeat)
         memory = peak_memory(files, binmap_path, out)
@@ -269,7 +274,12 @@ def main(argv: list[str] | None = None) -> int:
     small, large = str(lines), str(4 * lines)
     rss_small = memory[small]["convert"]["peak_rss_mib"]
     rss_large = memory[large]["convert"]["peak_rss_mib"]
-    per_row_s = m["per_row_slice"] * scale
+    slice_lines, slice_lines_2 = counts["per_row_slice"], counts["per_row_slice_2"]
+    per_line_s = (m["per_row_slice_2"] - m["per_row_slice"]) / (slice_lines_2 - slice_lines)
+    fixed_s = m["per_row_slice"] - slice_lines * per_line_s
+    if per_line_s <= 0 or fixed_s < 0:  # noise larger than the difference: plain scaling
+        per_line_s, fixed_s = m["per_row_slice"] / slice_lines, 0.0
+    per_row_s = fixed_s + data_lines * per_line_s
     results = {
         "date": started.isoformat(timespec="seconds"),
         "command": "python benchmarks/run.py " + " ".join(argv),
@@ -281,7 +291,8 @@ def main(argv: list[str] | None = None) -> int:
         "seconds_median": m,
         "seconds_all": wall,
         "cpu_seconds_median": {k: med(v) for k, v in cpu.items()},
-        "per_row_script": {"slice_lines": counts["per_row_slice"], "scaled_seconds": per_row_s},
+        "per_row_script": {"slice_lines": [slice_lines, slice_lines_2], "fixed_seconds": fixed_s,
+                           "seconds_per_line": per_line_s, "scaled_seconds": per_row_s},
         "memory": memory,
         "cli_startup": startup,
         "thermocouple_vs_linear": tc,
@@ -322,8 +333,10 @@ def print_table(r: dict) -> None:
     print(f"{'step':<28}{'wall s':>9}{'CPU s':>9}")
     for name in ("transcode", "convert", "convert_binary", "read_text", "read_binary", "transcode_large", "convert_large"):
         print(f"{name:<28}{m[name]:>9.3f}{r['cpu_seconds_median'][name]:>9.3f}")
-    print(f"{'per-row pandas (scaled)':<28}{r['per_row_script']['scaled_seconds']:>9.1f}"
-          f"   (slice of {r['per_row_script']['slice_lines']:,} lines: {m['per_row_slice']:.2f} s)")
+    pr = r["per_row_script"]
+    print(f"{'per-row pandas (scaled)':<28}{pr['scaled_seconds']:>9.1f}"
+          f"   (slices of {pr['slice_lines'][0]:,} / {pr['slice_lines'][1]:,} lines: {m['per_row_slice']:.2f} /"
+          f" {m['per_row_slice_2']:.2f} s; {pr['seconds_per_line'] * 1e6:.1f} us per line + {pr['fixed_seconds']:.2f} s)")
     print(f"{'CLI start-up (100 lines)':<28}{r['cli_startup']['wall_s']:>9.3f}")
     print(f"\n{'peak RSS MiB':<28}{small + ' lines':>16}{large + ' lines':>18}")
     for name in ("convert", "convert_binary", "transcode"):
