@@ -452,3 +452,25 @@ def test_each_value_converts_alone_as_in_any_array(letter):
     together = cold_junction_compensated_temperature(e, t_cj, type=letter)
     alone = [cold_junction_compensated_temperature(np.array([x]), np.array([c]), type=letter)[0] for x, c in zip(e, t_cj)]
     np.testing.assert_array_equal(together, np.array(alone))
+
+
+def test_a_value_at_a_rounding_edge_of_a_limit_converts_alone_as_beside_nan():
+    # 1664.4 + 0.1 rounds to 1664.5 (a type R and S subrange limit) while |1664.4 - 1664.5|
+    # is below 0.1: whether a value counts as near a limit must not depend on the others
+    # (found by review; the values are ours, chosen for the rounding)
+    for letter in "RS":
+        alone = cold_junction_compensated_temperature(np.array([0.0]), np.array([1664.4]), type=letter)[0]
+        beside = cold_junction_compensated_temperature(np.array([0.0, 0.0]), np.array([1664.4, np.nan]), type=letter)[0]
+        assert alone == beside
+    # an emf whose first estimate lies at such an edge (type R, found by review)
+    e = np.array([11.362385361897523])
+    assert thermocouple_temperature(e, type="R")[0] == thermocouple_temperature(np.append(e, np.nan), type="R")[0]
+
+
+def test_two_dimensional_cold_junction():
+    t_cj = np.array([[25.0, 30.0], [0.05, 26.0]])  # 0.05 degC: near type K's limit at 0 degC
+    measured = np.array([[4.0, 5.0], [6.0, 7.0]])
+    got = cold_junction_compensated_temperature(measured, t_cj, type="K")
+    alone = [cold_junction_compensated_temperature(np.array([m]), np.array([c]), type="K")[0]
+             for m, c in zip(measured.ravel(), t_cj.ravel())]
+    np.testing.assert_array_equal(got.ravel(), alone)

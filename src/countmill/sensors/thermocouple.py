@@ -464,18 +464,30 @@ def _temperature(e: np.ndarray, tab: _TypeTables) -> np.ndarray:
 
 
 def _near_limits(t: np.ndarray, tab: _TypeTables) -> np.ndarray | None:
-    """Indices of the values within :data:`_STEP_REACH` of a subrange limit or an end of the
-    reference function (where the table does not hold), or None when there are none. NaN
-    is near nothing."""
+    """Indices into ``t.ravel()`` of the values within :data:`_STEP_REACH` of a subrange
+    limit or an end of the reference function (where the table does not hold), or None
+    when there are none. NaN is near nothing.
+
+    The shortcut for an array with none near makes exactly the per-value comparisons, on
+    its smallest and largest value (a rounded difference is monotonic, so they stand for
+    all): whether a value counts as near never depends on the others.
+    """
     if t.size == 0:
         return None
-    low, high = t.min(), t.max()
-    if (
-        low >= tab.t_min + _STEP_REACH
-        and high <= tab.t_max - _STEP_REACH
-        and _one_subrange(t, tab.t_breaks, "left", (low - _STEP_REACH, high + _STEP_REACH)) is not None
-    ):
-        return None  # (all inside one subrange; NaN fails the comparisons above)
+    low, high = float(t.min()), float(t.max())
+    if low >= tab.t_min + _STEP_REACH and high <= tab.t_max - _STEP_REACH:  # (NaN: False)
+        for limit in tab.t_breaks.tolist():
+            if high < limit:
+                if abs(high - limit) < _STEP_REACH:
+                    break
+            elif low > limit:
+                if abs(low - limit) < _STEP_REACH:
+                    break
+            else:
+                break
+        else:
+            return None
+    t = t.reshape(-1)
     with np.errstate(invalid="ignore"):
         near = (t < tab.t_min + _STEP_REACH) | (t > tab.t_max - _STEP_REACH)
         for limit in tab.t_breaks.tolist():
@@ -574,8 +586,8 @@ def cold_junction_compensated_temperature(emf_measured_mV, t_cold_junction, *, t
         # temperature), from the polynomials elsewhere: decided value by value
         e_cj = _emf_near(_interval(t_cj, tab), tab)
         near = _near_limits(t_cj, tab)
-        if near is not None:
-            e_cj[near] = thermocouple_emf(t_cj[near], type=type)
+        if near is not None:  # (indices into the flattened arrays)
+            np.put(e_cj, near, thermocouple_emf(t_cj.reshape(-1)[near], type=type))
     else:
         e_cj = thermocouple_emf(t_cj, type=type)
     e = np.add(np.asarray(emf_measured_mV, dtype=np.float64), e_cj)
