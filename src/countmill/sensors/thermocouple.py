@@ -97,7 +97,7 @@ class _TypeTables:
     e_breaks: np.ndarray  # inner subrange limits of the inverse function [mV]
     d: tuple[np.ndarray, ...]  # inverse-function coefficients per subrange, ascending
     # E [mV] and dE/dt [mV/degC] at the start of every interval of _SLOPE_STEP from t_min,
-    # and the change of dE/dt over the interval (see :func:`_slope` and :func:`_emf_near`)
+    # and the change of dE/dt over the interval (see :func:`_from_table`)
     emf_at: np.ndarray = field(default_factory=lambda: np.zeros(0))
     slope_at: np.ndarray = field(default_factory=lambda: np.zeros(0))
     slope_change: np.ndarray = field(default_factory=lambda: np.zeros(0))
@@ -146,57 +146,45 @@ def _tables(letter: str) -> _TypeTables:
                    slope_change=slope_end - slope_at)
 
 
-def _interval(t: np.ndarray, tab: _TypeTables) -> tuple[np.ndarray, np.ndarray]:
-    """The table interval holding each ``t`` and where in it ``t`` lies (0 ... 1). A NaN
-    casts to a huge negative index, which the callers' clipped takes keep in the table."""
-    position = t - tab.t_min
-    position *= 1.0 / _SLOPE_STEP
+def _from_table(t: np.ndarray, tab: _TypeTables, derivatives: bool = True):
+    r"""E [mV] near ``t`` from the table of spacing h = :data:`_SLOPE_STEP`, and (with
+    ``derivatives``) dE/dt [mV/degC] and d2E/dt2 [mV/degC2]; None for those without.
+
+    On the table interval from :math:`t_j` holding :math:`t = t_j + x`, dE/dt is
+    interpolated linearly, :math:`S = S_j + x\, \Delta S_j / h`, d2E/dt2 is the interval's
+    :math:`\Delta S_j / h`, and E is the value at its start plus the integral of that slope,
+
+    .. math:: E(t_j + x) = E(t_j) + x\, S(t_j) + \frac{x^2}{2}\, \frac{\Delta S_j}{h}.
+
+    Each interval takes the subrange polynomial of its middle, so none interpolates across
+    the step of dE/dt at a subrange limit. The slope is within 2e-7 (relative) of the
+    analytic one; E (neglected term below h^3 |d3E/dt3| / 12) within 1e-10 mV of the
+    reference polynomial over each type's inverse range and 1e-9 mV down to -270 degC (about
+    2e-9 degC of temperature in the inverse range, observed on dense grids). Only for points
+    at least one interval away from every subrange limit and the range's ends, where E is
+    smooth (see :func:`_near_limits`). NaN in, NaN out: a NaN casts to a huge negative index,
+    which the clipped takes keep in the table, and its fraction stays NaN.
+    """
+    fraction = t - tab.t_min
+    fraction *= 1.0 / _SLOPE_STEP
     with np.errstate(invalid="ignore"):
-        whole = position.astype(np.intp)
-    position -= whole
-    return whole, position
-
-
-def _slope(t: np.ndarray, tab: _TypeTables, interval=None) -> tuple[np.ndarray, np.ndarray]:
-    """dE/dt [mV/degC] near ``t``, interpolated linearly in a table of spacing
-    :data:`_SLOPE_STEP`, and d2E/dt2 [mV/degC2] (the table interval's slope change over
-    its width).
-
-    Only the refinement uses them: an error of the slope scales each step's correction,
-    and the table's (below 2e-7 relative, from the curvature of dE/dt over one interval;
-    each interval takes the subrange polynomial of its middle, so none interpolates across
-    the step of dE/dt at a subrange limit) leaves the refined result within 2e-8 degC; it
-    costs a few array passes instead of a second Horner scheme for the derivative. NaN in,
-    NaN out. ``interval``: :func:`_interval` of ``t`` when already known.
-    """
-    whole, fraction = _interval(t, tab) if interval is None else interval
+        whole = fraction.astype(np.intp)
+    fraction -= whole
     change = np.take(tab.slope_change, whole, mode="clip")
-    slope = change * fraction
-    slope += np.take(tab.slope_at, whole, mode="clip")
+    start = np.take(tab.slope_at, whole, mode="clip")
+    emf = np.take(tab.emf_at, whole, mode="clip")
+    part = change * fraction  # (one scratch array for the rest)
+    part *= 0.5
+    part += start  # the mean slope from the interval's start to t
+    part *= fraction
+    part *= _SLOPE_STEP
+    emf += part
+    if not derivatives:
+        return emf, None, None
+    np.multiply(change, fraction, out=part)
+    part += start
     change *= 1.0 / _SLOPE_STEP
-    return slope, change
-
-
-def _emf_near(interval, tab: _TypeTables) -> np.ndarray:
-    r"""E [mV] at the points of ``interval`` (see :func:`_interval`), from the table: the
-    value at the interval's start plus the integral of the linearly interpolated slope,
-
-    .. math:: E(t_j + x) = E(t_j) + x\, S(t_j) + \frac{x^2}{2}\, \frac{\Delta S_j}{h},
-
-    (the neglected term is below h^3 |d3E/dt3| / 12, h = 1/16 degC): within 1e-10 mV of the
-    reference polynomial over each type's inverse range, 1e-9 mV down to -270 degC (at most
-    about 2e-9 degC of temperature in the inverse range, observed on dense grids). Only for points
-    at least one interval away from every subrange limit, where E is smooth.
-    """
-    whole, fraction = interval
-    change = np.take(tab.slope_change, whole, mode="clip")
-    change *= 0.5
-    change *= fraction
-    change += np.take(tab.slope_at, whole, mode="clip")  # mean slope from the start
-    change *= fraction
-    change *= _SLOPE_STEP
-    change += np.take(tab.emf_at, whole, mode="clip")
-    return change
+    return emf, part, change
 
 
 def _horner(coefficients: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -432,13 +420,11 @@ def _temperature(e: np.ndarray, tab: _TypeTables) -> np.ndarray:
     if bounds is None:
         e[~((e >= tab.e_min - _EMF_ROUND_OFF_MV) & (e <= tab.e_max + _EMF_ROUND_OFF_MV))] = np.nan
     t0 = _inverse_polynomial(e, tab, bounds)
-    interval = _interval(t0, tab)
-    s, curvature = _slope(t0, tab, interval)
     # one step with its second-order term: u (1 + S'/(2S) u), u the Newton step (the term is
-    # below 2e-5 degC; what it leaves is below 2e-8 degC), E(t0) from the table. It holds
-    # where t0 lies _STEP_REACH inside a subrange of the reference function, which the step
-    # (less than 0.06 degC) does not leave, and where E is smooth.
-    u = _emf_near(interval, tab)
+    # below 2e-5 degC; what it leaves is below 2e-8 degC), E(t0), S and S' from the table.
+    # It holds where t0 lies _STEP_REACH inside a subrange of the reference function, which
+    # the step (less than 0.06 degC) does not leave, and where E is smooth.
+    u, s, curvature = _from_table(t0, tab)
     u -= e
     u /= s
     curvature /= s
@@ -446,13 +432,15 @@ def _temperature(e: np.ndarray, tab: _TypeTables) -> np.ndarray:
     curvature *= u
     curvature += 1.0
     u *= curvature
-    t = t0 - u
     near = _near_limits(t0, tab)
+    if near is not None:  # (their first estimates, before t0 becomes the result)
+        tn, en, sn = t0[near], e[near], s[near]
+    t = t0
+    t -= u
     if near is not None:
         # near a limit dE/dt steps: Newton steps on the reference polynomials, all with the
         # slope at the first estimate (over the hundredths of a degree they move it changes
         # by far less than the error left needs)
-        tn, en, sn = t0[near], e[near], s[near]
         for _ in range(_NEWTON_STEPS):
             f, _unused = _emf_and_slope(tn, tab, slope=False)
             f -= en
@@ -584,7 +572,7 @@ def cold_junction_compensated_temperature(emf_measured_mV, t_cold_junction, *, t
     if t_cj.ndim:
         # E(t_cj) from the table where t_cj lies inside a subrange (a terminal block near room
         # temperature), from the polynomials elsewhere: decided value by value
-        e_cj = _emf_near(_interval(t_cj, tab), tab)
+        e_cj = _from_table(t_cj, tab, derivatives=False)[0]
         near = _near_limits(t_cj, tab)
         if near is not None:  # (indices into the flattened arrays)
             np.put(e_cj, near, thermocouple_emf(t_cj.reshape(-1)[near], type=type))
