@@ -474,3 +474,14 @@ def test_two_dimensional_cold_junction():
     alone = [cold_junction_compensated_temperature(np.array([m]), np.array([c]), type="K")[0]
              for m, c in zip(measured.ravel(), t_cj.ravel())]
     np.testing.assert_array_equal(got.ravel(), alone)
+
+
+def test_inputs_are_left_alone():
+    emf = np.array([4.0, 5.0, np.nan, 1e3])
+    t_cj = np.array([25.0, 0.02, 30.0, np.nan])
+    before = emf.copy(), t_cj.copy()
+    thermocouple_temperature(emf, type="K")
+    cold_junction_compensated_temperature(emf, t_cj, type="K")
+    cold_junction_compensated_temperature(emf, 25.0, type="K")
+    np.testing.assert_array_equal(emf, before[0])
+    np.testing.assert_array_equal(t_cj, before[1])

@@ -173,7 +173,8 @@ def _from_table(t: np.ndarray, tab: _TypeTables, derivatives: bool = True):
     change = np.take(tab.slope_change, whole, mode="clip")
     start = np.take(tab.slope_at, whole, mode="clip")
     emf = np.take(tab.emf_at, whole, mode="clip")
-    part = change * fraction  # (one scratch array for the rest)
+    # (without the derivatives, ``change`` itself is the scratch array)
+    part = change * fraction if derivatives else np.multiply(change, fraction, out=change)
     part *= 0.5
     part += start  # the mean slope from the interval's start to t
     part *= fraction
@@ -188,8 +189,11 @@ def _from_table(t: np.ndarray, tab: _TypeTables, derivatives: bool = True):
 
 
 def _horner(coefficients: np.ndarray, x: np.ndarray) -> np.ndarray:
-    y = np.full_like(x, coefficients[-1])
-    for c in coefficients[-2::-1]:
+    if len(coefficients) == 1:
+        return np.full_like(x, coefficients[0])
+    y = x * coefficients[-1]
+    y += coefficients[-2]
+    for c in coefficients[-3::-1]:
         y *= x
         y += c
     return y
@@ -578,5 +582,10 @@ def cold_junction_compensated_temperature(emf_measured_mV, t_cold_junction, *, t
             np.put(e_cj, near, thermocouple_emf(t_cj.reshape(-1)[near], type=type))
     else:
         e_cj = thermocouple_emf(t_cj, type=type)
-    e = np.add(np.asarray(emf_measured_mV, dtype=np.float64), e_cj)
+    measured = np.asarray(emf_measured_mV, dtype=np.float64)
+    if e_cj.shape == np.broadcast_shapes(e_cj.shape, measured.shape):  # (a fresh array: add in place)
+        e = e_cj
+        e += measured
+    else:
+        e = np.add(measured, e_cj)
     return _shape_out(_temperature(np.atleast_1d(e), tab).reshape(e.shape))
