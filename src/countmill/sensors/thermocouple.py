@@ -232,13 +232,6 @@ def _one_subrange(x: np.ndarray, breaks: np.ndarray, side: str, bounds=None) -> 
     return first if first == last else None
 
 
-def _widened(x: np.ndarray, margin: float):
-    """(min - margin, max + margin) of ``x`` (NaN when a value is NaN), None when empty."""
-    if x.size == 0:
-        return None
-    return x.min() - margin, x.max() + margin
-
-
 def _bounds_within(x: np.ndarray, low: float, high: float):
     """(min, max) of ``x`` when every value is within [low, high] (none NaN), else None."""
     if x.size == 0:
