@@ -256,8 +256,11 @@ class FlatWindow:
         top, bottom = values.max(), values.min()
         if not (np.isfinite(top) and np.isfinite(bottom)):
             return self._keep_all_steps(mono, values, tolerance, span_us)
-        with np.errstate(invalid="ignore"):
-            threshold = 2.0 * tolerance * (1.0 + 1e-9) + 1e-300
+        threshold = _widest_flat_spread(tolerance)
+
+        def too_wide(i: int) -> bool:  # the spread of the values from i on
+            return values[i:].max() - values[i:].min() > threshold
+
         # tail: the first call value whose suffix has a spread within the threshold
         if top - bottom <= threshold:
             tail = 0
@@ -265,14 +268,14 @@ class FlatWindow:
             wide, narrow, length = 0, n - 1, 1  # suffix at ``wide`` too wide, at ``narrow`` not
             while length < n:  # from the end, doubling, then halving the bracket
                 i = n - length
-                if values[i:].max() - values[i:].min() > threshold:
+                if too_wide(i):
                     wide = i
                     break
                 narrow = i
                 length *= 2
             while narrow - wide > 1:
                 mid = (wide + narrow) // 2
-                if values[mid:].max() - values[mid:].min() > threshold:
+                if too_wide(mid):
                     wide = mid
                 else:
                     narrow = mid
@@ -328,14 +331,19 @@ class FlatWindow:
         if self.dropped_until is not None and self.dropped_until < mono[-1] - span_us:
             self.dropped_until = None  # no later window reaches that far back
         # a window holding a step with more than twice the tolerance of spread is never flat
-        # (the small margin covers rounding in the per-record comparison)
         with np.errstate(invalid="ignore"):
             spread = high[first:] - low[first:]
-            wide = int(np.count_nonzero(spread > 2.0 * tolerance * (1.0 + 1e-9) + 1e-300))
+            wide = int(np.count_nonzero(spread > _widest_flat_spread(tolerance)))
         if wide:
             self.dropped_until = int(starts[first + wide - 1])
             first += wide
         self._set_steps(starts[first:], high[first:], low[first:])
+
+
+def _widest_flat_spread(tolerance: float) -> float:
+    """The largest spread of values a flat window can hold: twice the tolerance, with a
+    small margin for rounding in the per-record comparison."""
+    return 2.0 * tolerance * (1.0 + 1e-9) + 1e-300
 
 
 def range_min_max(x: np.ndarray, start: np.ndarray, stop: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
