@@ -395,6 +395,33 @@ def test_parquet_column_types_are_exactly_the_contract(write_log, bench_map, con
     assert [(f.name, f.type) for f in schema] == [(f.name, f.type) for f in expected]
 
 
+def _column_encodings(path: Path, column: str) -> set[str]:
+    meta = pq.ParquetFile(path).metadata
+    index = meta.schema.names.index(column)
+    return {e for g in range(meta.num_row_groups) for e in meta.row_group(g).column(index).encodings}
+
+
+def test_repeating_numbers_are_dictionary_encoded_and_read_back_exactly(write_log, make_map, convert):
+    # "supply" repeats 3 codes; "current" gets a new code on every record: its volts and
+    # values are all distinct and stay plainly encoded (a dictionary would only cost time)
+    channels = [
+        {"id": 1, "name": "supply", "unit": "V", "chain": [{"stage": "linear", "slope": 1.0}]},
+        {"id": 2, "name": "current", "unit": "A", "chain": [{"stage": "linear", "slope": 1.0, "unit": "A"}]},
+    ]
+    repeating = [(stamp(i), 1, 1000 + i % 3, 0) for i in range(400)]
+    distinct = [(stamp(i), 2, 7 * i, 0) for i in range(400)]  # inside a 12-bit ADC
+    for lines, dictionary in ((repeating, True), (distinct, False)):
+        result, out = convert(write_log(lines), make_map(channels))
+        for column in ("code", "volts", "value"):
+            assert ("RLE_DICTIONARY" in _column_encodings(out.path, column)) is dictionary, column
+        df = pd.read_parquet(out.path)
+        codes = np.array([code for _, _, code, _ in lines])
+        np.testing.assert_array_equal(df["code"], codes)
+        np.testing.assert_array_equal(df["value"], df["volts"])  # slope 1, in the same unit
+        assert df["volts"].nunique() == len(set(codes))
+    assert "RLE_DICTIONARY" in _column_encodings(out.path, "channel")  # names: always
+
+
 def test_parquet_flag_metadata_follows_cf_conventions(write_log, bench_map, convert):
     # CF conventions (flag_values / flag_masks / flag_meanings), IOC/IODE primary-level scheme
     _, out = convert(write_log(good_lines(2)), bench_map)

@@ -147,13 +147,14 @@ def test_sigterm_stops_cleanly_and_the_next_run_finishes(tmp_path, big_inbox, ti
 
 
 def test_a_full_disk_fails_that_file_alone(tmp_path, inbox, tiny_map, big_logs):
-    """RLIMIT_FSIZE stands in for a full disk: writes past 256 KiB fail with EFBIG, as a
-    full disk fails with ENOSPC; the small outputs fit, the big one does not."""
+    """RLIMIT_FSIZE stands in for a full disk: writes past 64 KiB fail with EFBIG, as a
+    full disk fails with ENOSPC; the small outputs fit (about 13 KB), the big one does not
+    (about 220 KB)."""
     shutil.copyfile(big_logs[0], inbox / big_logs[0].name)
     out = tmp_path / "out"
 
     def small_disk():
-        resource.setrlimit(resource.RLIMIT_FSIZE, (256 * 1024, 256 * 1024))
+        resource.setrlimit(resource.RLIMIT_FSIZE, (64 * 1024, 64 * 1024))
 
     cmd = countmill_cmd("batch", str(inbox), "--map", str(tiny_map), "--out", str(out), "--settle", "0")
     r = subprocess.run(cmd, capture_output=True, text=True, preexec_fn=small_disk, timeout=60)

@@ -144,15 +144,46 @@ class _TidySink:
         self.schema = tidy_schema()
 
 
+#: columns that may be dictionary-encoded, besides ``channel`` and ``unit`` (always): numbers
+#: that repeat. Volts and values come from a few thousand ADC codes per channel, flags from a
+#: handful of reasons; a dictionary then makes them cheaper to write and smaller to store.
+DICTIONARY_CANDIDATES = ("code", "volts", "value", "flags")
+
+#: a candidate is dictionary-encoded when the first row group holds at most this share of
+#: distinct values (Parquet falls back to plain encoding by itself when a dictionary page
+#: fills, but hashing every value first makes a column of distinct values ~4x slower to write)
+DICTIONARY_MAX_DISTINCT_SHARE = 1 / 8
+
+
+def repeating_columns(table: pa.Table) -> list[str]:
+    """The :data:`DICTIONARY_CANDIDATES` of ``table`` whose values repeat enough."""
+    limit = max(1, int(table.num_rows * DICTIONARY_MAX_DISTINCT_SHARE))
+    return [name for name in DICTIONARY_CANDIDATES if pc.count_distinct(table.column(name)).as_py() <= limit]
+
+
 class ParquetSink(_TidySink):
+    """Tidy rows to Parquet, one row group per :data:`ROW_GROUP_ROWS` rows.
+
+    The Parquet writer is made with the first row group, which tells which columns repeat
+    enough to be dictionary-encoded (:func:`repeating_columns`); the file under its
+    temporary name is opened at once.
+    """
+
     def __init__(self, final: Path, names: list[str], units: list[str], provenance: dict):
         super().__init__(final, names, units, provenance)
         self._write_schema = dictionary_schema(self.schema)
-        self.writer = pq.ParquetWriter(
-            self.tmp,
+        self._file = pa.OSFile(str(self.tmp), "wb")
+        self.writer: pq.ParquetWriter | None = None
+        self._pending: list[pa.Table] = []
+        self._pending_rows = 0
+
+    def _open_writer(self, first: pa.Table | None) -> pq.ParquetWriter:
+        repeating = repeating_columns(first) if first is not None else []
+        return pq.ParquetWriter(
+            self._file,
             self._write_schema,
             compression="zstd",
-            use_dictionary=["channel", "unit"],
+            use_dictionary=["channel", "unit", *repeating],
             # times and line numbers climb by small steps: delta encoding makes them almost
             # free to write and store (a Parquet 2 encoding every current reader knows)
             column_encoding={"time": "DELTA_BINARY_PACKED", "line": "DELTA_BINARY_PACKED"},
@@ -160,8 +191,6 @@ class ParquetSink(_TidySink):
             # line range); every row group holds every channel and most quality levels
             write_statistics=["time", "line"],
         )
-        self._pending: list[pa.Table] = []
-        self._pending_rows = 0
 
     def write(self, rows: Rows) -> None:
         if len(rows) == 0:
@@ -173,20 +202,28 @@ class ParquetSink(_TidySink):
 
     def _flush(self) -> None:
         if self._pending:
-            self.writer.write_table(pa.concat_tables(self._pending), row_group_size=max(self._pending_rows, 1))
+            table = pa.concat_tables(self._pending)
+            if self.writer is None:
+                self.writer = self._open_writer(table)
+            self.writer.write_table(table, row_group_size=max(self._pending_rows, 1))
             self._pending, self._pending_rows = [], 0
 
     def close(self) -> Path:
         self._flush()
+        if self.writer is None:  # no rows: the columns and the provenance alone
+            self.writer = self._open_writer(None)
         # (the plain schema: channel and unit read back as strings, as if written from strings)
         self.writer.add_key_value_metadata(provenance_metadata(self.schema, self.provenance))
         self.writer.close()
+        self._file.close()
         publish(self.tmp, self.final)
         return self.final
 
     def abort(self) -> None:
         try:
-            self.writer.close()
+            if self.writer is not None:
+                self.writer.close()
+            self._file.close()
         except Exception:
             pass
         self.tmp.unlink(missing_ok=True)
