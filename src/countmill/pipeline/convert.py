@@ -31,7 +31,8 @@ COLUMNS = ("time_us", "line", "name", "channel_id", "code", "gain", "volts", "va
 @dataclass
 class Rows:
     """Output rows as plain arrays (``name``/``unit`` index the converter's tables, -1 = null;
-    ``channel_id``/``code``/``gain`` are -1 with ``is_derived`` for derived rows)."""
+    ``channel_id``/``code``/``gain`` are -1 with ``is_derived`` for derived rows; any integer
+    width that holds the output column's numbers)."""
 
     time_us: np.ndarray
     line: np.ndarray
@@ -339,9 +340,10 @@ class Converter:
             time_us=np.empty(total, dtype=np.int64),
             line=np.empty(total, dtype=np.int64),
             name=self.rid_name[rid],
-            channel_id=np.empty(total, dtype=np.int64),
-            code=np.empty(total, dtype=np.int64),
-            gain=np.empty(total, dtype=np.int64),
+            # (already in the output columns' widths: the reader checked the numbers fit)
+            channel_id=np.empty(total, dtype=np.int32),
+            code=np.empty(total, dtype=np.int32),
+            gain=np.empty(total, dtype=np.int16),
             volts=np.empty(total),
             value=np.empty(total),
             unit=self.rid_unit[rid],

@@ -57,14 +57,14 @@ def rows_to_table(rows: Rows, names: list[str], units: list[str], schema: pa.Sch
         array = pa.DictionaryArray.from_arrays(indices, pa.array(table, type=pa.string()))
         return array if pa.types.is_dictionary(field.type) else array.dictionary_decode()
 
-    derived = rows.is_derived
+    derived = rows.is_derived if rows.is_derived.any() else None  # null where derived
     columns = [
         pa.array(rows.time_us, type=pa.int64()).view(pa.timestamp("us", tz="UTC")),
         pa.array(rows.line, type=pa.int64()),
         labels(rows.name, names, schema.field("channel")),
-        pa.array(rows.channel_id.astype(np.int32), mask=derived),
-        pa.array(rows.code.astype(np.int32), mask=derived),
-        pa.array(rows.gain.astype(np.int16), mask=derived),
+        pa.array(rows.channel_id.astype(np.int32, copy=False), mask=derived),
+        pa.array(rows.code.astype(np.int32, copy=False), mask=derived),
+        pa.array(rows.gain.astype(np.int16, copy=False), mask=derived),
         pa.array(rows.volts, type=pa.float64()),
         pa.array(rows.value, type=pa.float64()),
         labels(rows.unit, units, schema.field("unit")),
