@@ -63,6 +63,7 @@ from workloads import (  # noqa: E402 (the sibling module, whichever folder this
     per_row_params,
     per_row_script,
     step_convert,
+    step_convert_io,
     step_read,
     step_transcode,
     tc_vs_linear,
@@ -236,6 +237,8 @@ def main(argv: list[str] | None = None) -> int:
         steps = {
             "convert": lambda: step_convert(csv, cmap, out / "convert.parquet"),
             "transcode": lambda: step_transcode(csv, out / "transcode.parquet"),
+            # countmill's reading and writing alone (records pass through unconverted)
+            "convert_io": lambda: step_convert_io(csv, cmap, out / "convert-io.parquet"),
             "convert_binary": lambda: step_convert(binary, binmap, out / "binary.parquet"),
             "read_text": lambda: step_read(csv, cmap.input, cmap.timezone),
             "read_binary": lambda: step_read(binary, binmap.input, binmap.timezone),
@@ -263,7 +266,8 @@ def main(argv: list[str] | None = None) -> int:
 
         data_lines = lines
         same = (counts["transcode"] == counts["read_text"] == counts["read_binary"] == lines
-                and counts["convert"] == counts["convert_binary"] and counts["transcode_large"] == 4 * lines)
+                and counts["convert"] == counts["convert_binary"] and counts["transcode_large"] == 4 * lines
+                and counts["convert_io"] == lines)
         if not same:
             raise SystemExit(f"the steps did not see the same records: {counts}")
         # The converter comparison times small arrays (13,157 records), whose temporaries
@@ -307,6 +311,10 @@ def main(argv: list[str] | None = None) -> int:
             "convert_over_transcode": m["convert"] / m["transcode"],
             "convert_over_transcode_per_round_median": med(per_round),
             "convert_over_transcode_large_file": m["convert_large"] / m["transcode_large"],
+            # the profile in two numbers: countmill's input and output alone, and what the
+            # conversion adds to them
+            "convert_io_over_transcode": m["convert_io"] / m["transcode"],
+            "convert_over_convert_io": m["convert"] / m["convert_io"],
             "per_row_script_over_convert": per_row_s / m["convert"],
             "csv_convert_over_binary_convert": m["convert"] / m["convert_binary"],
             "csv_read_over_binary_read": m["read_text"] / m["read_binary"],
@@ -338,7 +346,8 @@ def print_table(r: dict) -> None:
     print(f"file: {f['lines']:,} lines, {f['csv_mb']} MB CSV / {f['binary_mb']} MB binary -> {f['rows_out']:,} rows;"
           f" median of {r['repeat']} interleaved rounds")
     print(f"{'step':<28}{'wall s':>9}{'CPU s':>9}")
-    for name in ("transcode", "convert", "convert_binary", "read_text", "read_binary", "transcode_large", "convert_large"):
+    for name in ("transcode", "convert_io", "convert", "convert_binary", "read_text", "read_binary", "transcode_large",
+                 "convert_large"):
         print(f"{name:<28}{m[name]:>9.3f}{r['cpu_seconds_median'][name]:>9.3f}")
     pr = r["per_row_script"]
     print(f"{'per-row pandas (scaled)':<28}{pr['scaled_seconds']:>9.1f}"
@@ -360,6 +369,8 @@ def print_table(r: dict) -> None:
     targets = r["targets"]
     print(f"  convert / transcode            {ratios['convert_over_transcode']:8.2f}   ({targets['convert_over_transcode']})")
     print(f"  same, {r['large_file']['lines']:,} lines{'':<4}{ratios['convert_over_transcode_large_file']:8.2f}")
+    print(f"  I/O alone / transcode          {ratios['convert_io_over_transcode']:8.2f}   (convert_io: no conversion)")
+    print(f"  convert / I/O alone            {ratios['convert_over_convert_io']:8.2f}")
     print(f"  per-row pandas / convert       {ratios['per_row_script_over_convert']:8.1f}   ({targets['per_row_script_over_convert']})")
     print(f"  CSV / binary, convert          {ratios['csv_convert_over_binary_convert']:8.2f}   ({targets['csv_over_binary']})")
     print(f"  CSV / binary, reader alone     {ratios['csv_read_over_binary_read']:8.2f}")

@@ -106,6 +106,53 @@ def step_convert(raw: Path, cmap, out: Path) -> int:
     return convert_file(raw, cmap, out).rows
 
 
+def step_convert_io(raw: Path, cmap, out: Path) -> int:
+    """``countmill convert`` with the conversion left out: the same reading, hashing, rows in
+    file order, summary counts and Parquet writing of the eleven output columns, but each
+    record passes through as read (no grouping by channel, no stages, no quality tests).
+    What is left above the transcode here is countmill's input and output; what ``convert``
+    takes above this is the conversion itself."""
+    from countmill.convert import DEFAULT_CHUNK_ROWS, run_conversion
+    from countmill.pipeline.output import ParquetSink
+
+    return run_conversion(
+        raw, cmap, out, lambda converter, provenance: ParquetSink(out, converter.names, converter.units, provenance),
+        chunk_rows=DEFAULT_CHUNK_ROWS, converter=pass_through_converter(cmap),
+    ).rows
+
+
+def pass_through_converter(cmap):
+    """A converter of ``cmap`` that leaves the conversion out (countmill is imported here,
+    not at the top: the memory of the transcode's own process must not include it)."""
+    from countmill.pipeline.convert import Converter, Rows
+
+    class PassThrough(Converter):
+        """Rows straight from the records: the channel's name and unit by its id, the code
+        as volts and value, no flags (one array operation per output column)."""
+
+        def __init__(self, cmap):
+            super().__init__(cmap)
+            ids = list(cmap.channels)
+            self._name = np.full(max(ids) + 1, -1, dtype=np.int32)
+            self._unit = np.full(max(ids) + 1, -1, dtype=np.int32)
+            for cid, revisions in cmap.channels.items():
+                self._name[cid] = self.name_index[revisions[0].name]
+                self._unit[cid] = self.unit_index[revisions[0].unit]
+
+        def convert(self, rec):
+            n = len(rec)
+            known = (rec.channel >= 0) & (rec.channel < len(self._name))
+            channel = np.where(known, rec.channel, 0)
+            volts = rec.code.astype(np.float64)
+            self.rows_emitted += n
+            return Rows(time_us=rec.time_us, line=rec.line, name=self._name[channel], channel_id=rec.channel,
+                        code=rec.code, gain=rec.gain, volts=volts, value=volts, unit=self._unit[channel],
+                        flags=np.zeros(n, dtype=np.int64), evaluated=np.ones(n, dtype=bool),
+                        is_derived=np.zeros(n, dtype=bool))
+
+    return PassThrough(cmap)
+
+
 def step_transcode(raw: Path, out: Path) -> int:
     """The floor: stream the CSV through Arrow's parser into a Parquet writer, nothing else."""
     import pyarrow as pa
