@@ -17,6 +17,9 @@ loops, a derived channel; ISO local times with milliseconds), cached in
 * ``transcode``: the floor, a plain Arrow transcode of the same file:
   ``pyarrow.csv.open_csv`` streaming with explicit column types into a
   ``pyarrow.parquet.ParquetWriter`` with the same compression (zstd);
+* ``convert_io``: ``countmill convert`` with the converter left out (records pass through
+  as read; same reader, hash, summary counts and Parquet writer): countmill's reading and
+  writing alone, so that convert / transcode splits into that and the conversion's share;
 * ``convert binary``: the same records as fixed-size little-endian binary records;
 * ``read text`` / ``read binary``: the readers alone (records out, nothing converted);
 * the script a user would otherwise write: pandas ``read_csv`` plus a per-row Python
