@@ -411,7 +411,7 @@ def test_repeating_numbers_are_dictionary_encoded_and_read_back_exactly(write_lo
     repeating = [(stamp(i), 1, 1000 + i % 3, 0) for i in range(400)]
     distinct = [(stamp(i), 2, 7 * i, 0) for i in range(400)]  # inside a 12-bit ADC
     for lines, dictionary in ((repeating, True), (distinct, False)):
-        result, out = convert(write_log(lines), make_map(channels))
+        _, out = convert(write_log(lines), make_map(channels))
         for column in ("code", "volts", "value"):
             assert ("RLE_DICTIONARY" in _column_encodings(out.path, column)) is dictionary, column
         df = pd.read_parquet(out.path)
